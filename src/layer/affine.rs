@@ -1,0 +1,141 @@
+//! The affine (fully connected) layer y = x·W + b.
+
+use super::{check_width, Layer, LayerSpec, Pass, Role, TensorSpec};
+use crate::buffer::Buffer;
+use crate::error::ConfigError;
+use crate::init::{Init, Rng};
+use crate::scalar::Scalar;
+use ndarray::linalg::general_mat_mul;
+use ndarray::{ArrayView1, ArrayView2, ArrayViewMut1, ArrayViewMut2, Axis};
+
+/// Fully connected layer: W is inputs × outputs (row-major), then b (outputs).
+#[derive(Debug, Clone)]
+pub struct Affine<F> {
+    inputs: usize,
+    outputs: usize,
+    weight_init: Init,
+    bias_init: Init,
+    out: Buffer<F>,
+    grad_in: Buffer<F>,
+}
+
+impl<F: Scalar> Affine<F> {
+    /// A layer from `inputs` to `outputs` units with the given initializers.
+    pub fn new(
+        inputs: usize,
+        outputs: usize,
+        weight_init: Init,
+        bias_init: Init,
+    ) -> Result<Self, ConfigError> {
+        check_width("affine layer inputs", inputs)?;
+        check_width("affine layer outputs", outputs)?;
+        weight_init.validate()?;
+        bias_init.validate()?;
+        Ok(Affine {
+            inputs,
+            outputs,
+            weight_init,
+            bias_init,
+            out: Buffer::default(),
+            grad_in: Buffer::default(),
+        })
+    }
+
+    fn split<'a>(&self, params: &'a [F]) -> (ArrayView2<'a, F>, ArrayView1<'a, F>) {
+        let (w, b) = params.split_at(self.inputs * self.outputs);
+        (
+            ArrayView2::from_shape((self.inputs, self.outputs), w).expect("weight slice"),
+            ArrayView1::from(b),
+        )
+    }
+
+    fn split_mut<'a>(&self, grads: &'a mut [F]) -> (ArrayViewMut2<'a, F>, ArrayViewMut1<'a, F>) {
+        let (w, b) = grads.split_at_mut(self.inputs * self.outputs);
+        (
+            ArrayViewMut2::from_shape((self.inputs, self.outputs), w).expect("weight slice"),
+            ArrayViewMut1::from(b),
+        )
+    }
+}
+
+impl<F: Scalar> Layer<F> for Affine<F> {
+    fn spec(&self) -> LayerSpec {
+        LayerSpec::Affine {
+            inputs: self.inputs,
+            outputs: self.outputs,
+            weight_init: self.weight_init,
+            bias_init: self.bias_init,
+        }
+    }
+
+    fn input_width(&self) -> usize {
+        self.inputs
+    }
+
+    fn output_width(&self) -> usize {
+        self.outputs
+    }
+
+    fn tensors(&self) -> Vec<TensorSpec> {
+        vec![
+            TensorSpec {
+                name: "weight",
+                rows: self.inputs,
+                cols: self.outputs,
+                role: Role::Weight,
+            },
+            TensorSpec {
+                name: "bias",
+                rows: 1,
+                cols: self.outputs,
+                role: Role::Bias,
+            },
+        ]
+    }
+
+    fn init_params(&self, params: &mut [F], rng: &mut Rng) {
+        let (w, b) = params.split_at_mut(self.inputs * self.outputs);
+        self.weight_init.fill(w, self.inputs, self.outputs, rng);
+        self.bias_init.fill(b, 1, self.outputs, rng);
+    }
+
+    fn forward(&mut self, params: &[F], input: ArrayView2<'_, F>, _pass: Pass) {
+        let (w, b) = self.split(params);
+        self.out.reshape(input.nrows(), self.outputs);
+        let mut out = self.out.view_mut();
+        out.rows_mut().into_iter().for_each(|mut row| row.assign(&b));
+        general_mat_mul(F::one(), &input, &w, F::one(), &mut out);
+    }
+
+    fn output(&self) -> ArrayView2<'_, F> {
+        self.out.view()
+    }
+
+    fn input_grad(&self) -> ArrayView2<'_, F> {
+        self.grad_in.view()
+    }
+
+    fn backward(
+        &mut self,
+        params: &[F],
+        grads: &mut [F],
+        input: ArrayView2<'_, F>,
+        grad_out: ArrayView2<'_, F>,
+    ) -> ArrayView2<'_, F> {
+        let (w, _) = self.split(params);
+        let (mut dw, mut db) = self.split_mut(grads);
+        general_mat_mul(F::one(), &input.t(), &grad_out, F::one(), &mut dw);
+        for row in grad_out.axis_iter(Axis(0)) {
+            db += &row;
+        }
+        self.grad_in.reshape(grad_out.nrows(), self.inputs);
+        general_mat_mul(
+            F::one(),
+            &grad_out,
+            &w.t(),
+            F::zero(),
+            &mut self.grad_in.view_mut(),
+        );
+        self.grad_in.view()
+    }
+}

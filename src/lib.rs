@@ -1,0 +1,47 @@
+//! # relume
+//!
+//! Train small rectifier-family neural regressors on tabular data, on the CPU, in pure Rust.
+//!
+//! The pieces, bottom up:
+//! - [`Scalar`]: `f32` for training, `f64` for gradient checks.
+//! - [`Activation`]: ReLU and its relatives (leaky, PReLU, randomized leaky, ELU, SELU, CELU,
+//!   GELU, SiLU, Mish, softplus, capped) and the tanh / sigmoid baselines.
+//! - [`Init`]: He, Glorot, LeCun, orthogonal and constant initializers, always seeded.
+//! - [`layer`]: the [`Layer`] trait with affine, pointwise activation, PReLU and dropout layers.
+//! - [`Network`] and [`NetworkPlan`]: a stack of layers with flat parameter and gradient views.
+//! - [`Loss`]: MSE, MAE, Huber and quantile.
+//! - [`gradcheck`]: finite-difference verification of every gradient.
+//! - [`optim`]: optimizers over the flat parameter vector.
+//!
+//! ```
+//! use relume::{Activation, Loss, NetworkPlan, Pass};
+//! use ndarray::array;
+//!
+//! let mut net = NetworkPlan::new(2, &[8, 8], Activation::Relu).build::<f32>(7).unwrap();
+//! let x = array![[0.5_f32, -1.0], [1.5, 0.25]];
+//! let y = array![[1.0_f32], [0.0]];
+//! let out = net.forward(x.view(), Pass::Train).unwrap().to_owned();
+//! let mse = Loss::Mse.value(out.view(), y.view()).unwrap();
+//! assert!(mse.is_finite());
+//! ```
+
+pub mod activation;
+mod buffer;
+pub mod error;
+pub mod gradcheck;
+pub mod init;
+pub mod layer;
+pub mod loss;
+pub mod network;
+pub mod optim;
+pub mod scalar;
+
+pub use activation::Activation;
+pub use error::{ConfigError, ShapeError};
+pub use gradcheck::{check_gradients, CheckOptions, GradReport};
+pub use init::{Draw, Fan, Init};
+pub use layer::{Layer, LayerSpec, Pass};
+pub use loss::Loss;
+pub use network::{Network, NetworkPlan};
+pub use optim::{Adam, Optimizer};
+pub use scalar::Scalar;
