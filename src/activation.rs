@@ -341,8 +341,10 @@ impl Activation {
             Activation::Silu { beta } => x * sigmoid(F::of(beta) * x),
             Activation::Mish => x * softplus(x).tanh(),
             Activation::Softplus { beta } => {
+                // max(x, 0) + ln(1 + e^(−β|x|))/β: equal to ln(1 + e^(βx))/β, but βx never
+                // overflows.
                 let b = F::of(beta);
-                softplus(b * x) / b
+                x.max(F::zero()) + (-(b * x.abs())).exp().ln_1p() / b
             }
             Activation::CappedRelu { cap } => x.max(zero).min(F::of(cap)),
             Activation::Tanh => x.tanh(),
@@ -388,8 +390,8 @@ impl Activation {
             Activation::Silu { beta } => {
                 let b = F::of(beta);
                 let s = sigmoid(b * x);
-                // s + βx·s(1 − s), grouped so that x·s stays finite when s underflows.
-                s + b * (x * s) * (one - s)
+                // s + βx·s(1 − s), grouped so that no partial product overflows.
+                s + b * ((x * s) * (one - s))
             }
             Activation::Mish => {
                 let t = softplus(x).tanh();
