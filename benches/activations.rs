@@ -9,7 +9,9 @@ const N: usize = 1 << 20;
 
 fn inputs() -> Vec<f32> {
     // A deterministic spread over [-4, 4).
-    (0..N).map(|i| ((i * 7919) % 8000) as f32 / 1000.0 - 4.0).collect()
+    (0..N)
+        .map(|i| ((i * 7919) % 8000) as f32 / 1000.0 - 4.0)
+        .collect()
 }
 
 fn bench_activations(c: &mut Criterion) {

@@ -578,7 +578,8 @@ pub fn normal_cdf<F: Scalar>(x: F) -> F {
 /// Standard normal density φ(x).
 #[inline]
 pub fn normal_pdf<F: Scalar>(x: F) -> F {
-    let inv_sqrt_2pi = F::of(0.5 * std::f64::consts::FRAC_2_SQRT_PI * std::f64::consts::FRAC_1_SQRT_2);
+    let inv_sqrt_2pi =
+        F::of(0.5 * std::f64::consts::FRAC_2_SQRT_PI * std::f64::consts::FRAC_1_SQRT_2);
     inv_sqrt_2pi * (F::of(-0.5) * x * x).exp()
 }
 

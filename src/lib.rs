@@ -45,3 +45,8 @@ pub use loss::Loss;
 pub use network::{Network, NetworkPlan};
 pub use optim::{Adam, Optimizer};
 pub use scalar::Scalar;
+
+/// The README's code, compiled and run as a doctest so it stays true.
+#[cfg(doctest)]
+#[doc = include_str!("../README.md")]
+pub struct ReadmeDoctest;

@@ -144,11 +144,7 @@ impl Loss {
     }
 }
 
-fn same_shape(
-    what: &str,
-    expected: (usize, usize),
-    got: (usize, usize),
-) -> Result<(), ShapeError> {
+fn same_shape(what: &str, expected: (usize, usize), got: (usize, usize)) -> Result<(), ShapeError> {
     if expected == got {
         Ok(())
     } else {

@@ -234,7 +234,10 @@ impl<F: Scalar> Network<F> {
     /// Back-propagates `grad_out` (the loss gradient with respect to the last forward pass's
     /// output), adds the parameter gradients into [`Network::grads`] and returns the gradient
     /// with respect to the network input.
-    pub fn backward(&mut self, grad_out: ArrayView2<'_, F>) -> Result<ArrayView2<'_, F>, ShapeError> {
+    pub fn backward(
+        &mut self,
+        grad_out: ArrayView2<'_, F>,
+    ) -> Result<ArrayView2<'_, F>, ShapeError> {
         let rows = self.forward_rows.ok_or_else(|| {
             ShapeError::new("backward before any forward pass", (0, 0), grad_out.dim())
         })?;
@@ -255,7 +258,12 @@ impl<F: Scalar> Network<F> {
                 None => self.top_grad.view(),
             };
             let span = self.spans[i].clone();
-            layer.backward(&self.params[span.clone()], &mut self.grads[span], input, grad);
+            layer.backward(
+                &self.params[span.clone()],
+                &mut self.grads[span],
+                input,
+                grad,
+            );
         }
         Ok(match self.layers.first() {
             Some(first) => first.input_grad(),

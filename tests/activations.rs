@@ -105,23 +105,34 @@ fn closed_forms_from_the_papers() {
     let sig = |z: f64| 1.0 / (1.0 + (-z).exp());
     let cases: Vec<(Activation, f64)> = vec![
         (Activation::Relu, 0.0),
-        (Activation::LEAKY, 0.01 * x),                        // Maas et al. 2013
-        (Activation::PRELU, 0.25 * x),                        // He et al. 2015, initial slope
+        (Activation::LEAKY, 0.01 * x), // Maas et al. 2013
+        (Activation::PRELU, 0.25 * x), // He et al. 2015, initial slope
         (Activation::RANDOM_LEAKY, x * (1.0 / 8.0 + 1.0 / 3.0) / 2.0), // Xu et al. 2015, inference
-        (Activation::ELU, x.exp() - 1.0),                     // Clevert et al. 2016
-        (Activation::Celu { alpha: 2.0 }, 2.0 * ((x / 2.0).exp() - 1.0)), // Barron 2017
-        (Activation::SILU, x * sig(x)),                       // Elfwing et al. 2018
-        (Activation::Silu { beta: 2.0 }, x * sig(2.0 * x)),   // Ramachandran et al. 2017
-        (Activation::Mish, x * (1.0 + x.exp()).ln().tanh()),  // Misra 2019
-        (Activation::SOFTPLUS, (1.0 + x.exp()).ln()),         // Dugas et al. 2001
-        (Activation::Softplus { beta: 2.0 }, (1.0 + (2.0 * x).exp()).ln() / 2.0),
+        (Activation::ELU, x.exp() - 1.0), // Clevert et al. 2016
+        (
+            Activation::Celu { alpha: 2.0 },
+            2.0 * ((x / 2.0).exp() - 1.0),
+        ), // Barron 2017
+        (Activation::SILU, x * sig(x)), // Elfwing et al. 2018
+        (Activation::Silu { beta: 2.0 }, x * sig(2.0 * x)), // Ramachandran et al. 2017
+        (Activation::Mish, x * (1.0 + x.exp()).ln().tanh()), // Misra 2019
+        (Activation::SOFTPLUS, (1.0 + x.exp()).ln()), // Dugas et al. 2001
+        (
+            Activation::Softplus { beta: 2.0 },
+            (1.0 + (2.0 * x).exp()).ln() / 2.0,
+        ),
         (Activation::RELU6, 0.0),
         (Activation::Tanh, x.tanh()),
         (Activation::Sigmoid, sig(x)),
         (Activation::Identity, x),
     ];
     for (act, expected) in cases {
-        assert_relative_eq!(act.value(x), expected, epsilon = 1e-15, max_relative = 1e-13);
+        assert_relative_eq!(
+            act.value(x),
+            expected,
+            epsilon = 1e-15,
+            max_relative = 1e-13
+        );
     }
     assert_eq!(Activation::RELU6.value(7.5_f64), 6.0);
     assert_eq!(Activation::RELU6.value(2.5_f64), 2.5);
@@ -154,7 +165,10 @@ fn kink_conventions() {
     assert_eq!(Activation::LEAKY.derivative(0.0_f64), 0.01);
     assert_eq!(Activation::PRELU.derivative(0.0_f64), 0.25);
     assert_eq!(Activation::ELU.derivative(0.0_f64), 1.0);
-    assert_eq!(Activation::Selu.derivative(0.0_f64), SELU_LAMBDA * SELU_ALPHA);
+    assert_eq!(
+        Activation::Selu.derivative(0.0_f64),
+        SELU_LAMBDA * SELU_ALPHA
+    );
     assert_eq!(Activation::RELU6.derivative(0.0_f64), 0.0);
     assert_eq!(Activation::RELU6.derivative(6.0_f64), 0.0);
     assert_eq!(Activation::RELU6.derivative(5.0_f64), 1.0);
@@ -165,7 +179,9 @@ fn kink_conventions() {
 
 #[test]
 fn finite_inputs_give_finite_values_and_derivatives() {
-    let probes64: [f64; 9] = [1e300, -1e300, 1e4, -1e4, 710.0, -710.0, 1e-300, -1e-300, 0.0];
+    let probes64: [f64; 9] = [
+        1e300, -1e300, 1e4, -1e4, 710.0, -710.0, 1e-300, -1e-300, 0.0,
+    ];
     let probes32 = [1e4_f32, -1e4, 89.0, -89.0, 3e38, -3e38, 1e-38, 0.0];
     for act in family() {
         for &x in &probes64 {
@@ -174,7 +190,10 @@ fn finite_inputs_give_finite_values_and_derivatives() {
         }
         for &x in &probes32 {
             let (v, d) = (act.value(x), act.derivative(x));
-            assert!(v.is_finite() && d.is_finite(), "{act} at {x:e} (f32): {v}, {d}");
+            assert!(
+                v.is_finite() && d.is_finite(),
+                "{act} at {x:e} (f32): {v}, {d}"
+            );
         }
     }
     // And the limits are the right ones.
@@ -204,7 +223,10 @@ fn names_round_trip_and_bad_names_are_refused() {
         }
     );
     let unknown = "relu7".parse::<Activation>().unwrap_err().to_string();
-    assert!(unknown.contains("relu7") && unknown.contains("leaky-relu"), "{unknown}");
+    assert!(
+        unknown.contains("relu7") && unknown.contains("leaky-relu"),
+        "{unknown}"
+    );
     assert!("elu:-1".parse::<Activation>().is_err());
     assert!("elu:abc".parse::<Activation>().is_err());
     assert!("relu:3".parse::<Activation>().is_err());

@@ -20,7 +20,9 @@ fn fit_sine(hidden: usize, steps: usize, seed: u64) -> f64 {
         adam.set_learning_rate(1e-2 * (1.0 - 0.99 * step as f64 / steps as f64));
         net.zero_grads();
         let out = net.forward(x.view(), Pass::Train).unwrap();
-        Loss::Mse.gradient_into(out, y.view(), grad.view_mut()).unwrap();
+        Loss::Mse
+            .gradient_into(out, y.view(), grad.view_mut())
+            .unwrap();
         net.backward(grad.view()).unwrap();
         let (params, grads) = net.params_and_grads();
         adam.step(params, grads);

@@ -21,7 +21,11 @@ fn network(act: Activation, positions: &[usize], dropout: f64, seed: u64) -> Net
     let mut specs = Vec::new();
     let mut width = 3;
     for p in 0..3 {
-        let a = if positions.contains(&p) { act } else { Activation::Tanh };
+        let a = if positions.contains(&p) {
+            act
+        } else {
+            Activation::Tanh
+        };
         specs.push(LayerSpec::Affine {
             inputs: width,
             outputs: 4,
@@ -29,9 +33,15 @@ fn network(act: Activation, positions: &[usize], dropout: f64, seed: u64) -> Net
             // Non-zero biases so no unit sits exactly at a kink by symmetry.
             bias_init: Init::Constant { value: 0.1 },
         });
-        specs.push(LayerSpec::Activation { width: 4, activation: a });
+        specs.push(LayerSpec::Activation {
+            width: 4,
+            activation: a,
+        });
         if dropout > 0.0 {
-            specs.push(LayerSpec::Dropout { width: 4, rate: dropout });
+            specs.push(LayerSpec::Dropout {
+                width: 4,
+                rate: dropout,
+            });
         }
         width = 4;
     }
@@ -90,17 +100,14 @@ fn check(
         let x = normal_matrix(6, 3, 1000 + seed);
         let y = normal_matrix(6, 1, 2000 + seed);
         let pred = net.forward(x.view(), options.pass).unwrap().to_owned();
-        if kink_distance(&net) < MARGIN || loss_kink_distance(loss, pred.view(), y.view()) < MARGIN {
+        if kink_distance(&net) < MARGIN || loss_kink_distance(loss, pred.view(), y.view()) < MARGIN
+        {
             continue;
         }
         let report = check_gradients(&mut net, loss, x.view(), y.view(), options).unwrap();
         let worst = report.max_rel_error();
         println!("{label}: max relative error {worst:.2e} (seed {seed})");
-        assert!(
-            worst <= TOLERANCE,
-            "{label}: {:?}",
-            report.worst_tensor()
-        );
+        assert!(worst <= TOLERANCE, "{label}: {:?}", report.worst_tensor());
         return worst;
     }
     panic!("{label}: no seed kept the test points away from kinks");
@@ -198,7 +205,10 @@ struct WrongSoftplus {
 
 impl Layer<f64> for WrongSoftplus {
     fn spec(&self) -> LayerSpec {
-        LayerSpec::Activation { width: 4, activation: Activation::SOFTPLUS }
+        LayerSpec::Activation {
+            width: 4,
+            activation: Activation::SOFTPLUS,
+        }
     }
     fn input_width(&self) -> usize {
         4
@@ -230,35 +240,59 @@ impl Layer<f64> for WrongSoftplus {
 #[test]
 fn a_wrong_derivative_is_caught() {
     let mut net = Network::<f64>::new(3).unwrap();
-    net.push(LayerSpec::Affine {
-        inputs: 3,
-        outputs: 4,
-        weight_init: Init::HE,
-        bias_init: Init::ZERO,
-    }
-    .build()
-    .unwrap())
+    net.push(
+        LayerSpec::Affine {
+            inputs: 3,
+            outputs: 4,
+            weight_init: Init::HE,
+            bias_init: Init::ZERO,
+        }
+        .build()
+        .unwrap(),
+    )
     .unwrap();
-    net.push(Box::new(WrongSoftplus { out: Array2::zeros((0, 0)), grad: Array2::zeros((0, 0)) }))
-        .unwrap();
-    net.push(LayerSpec::Affine {
-        inputs: 4,
-        outputs: 1,
-        weight_init: Init::GLOROT,
-        bias_init: Init::ZERO,
-    }
-    .build()
-    .unwrap())
+    net.push(Box::new(WrongSoftplus {
+        out: Array2::zeros((0, 0)),
+        grad: Array2::zeros((0, 0)),
+    }))
+    .unwrap();
+    net.push(
+        LayerSpec::Affine {
+            inputs: 4,
+            outputs: 1,
+            weight_init: Init::GLOROT,
+            bias_init: Init::ZERO,
+        }
+        .build()
+        .unwrap(),
+    )
     .unwrap();
     net.initialize(3);
     let x = normal_matrix(6, 3, 1);
     let y = normal_matrix(6, 1, 2);
-    let report = check_gradients(&mut net, Loss::Mse, x.view(), y.view(), CheckOptions::default())
-        .unwrap();
+    let report = check_gradients(
+        &mut net,
+        Loss::Mse,
+        x.view(),
+        y.view(),
+        CheckOptions::default(),
+    )
+    .unwrap();
     let worst = report.worst_tensor().unwrap();
-    println!("wrong derivative: {} max relative error {:.3e}", worst.label, worst.max_rel_error);
+    println!(
+        "wrong derivative: {} max relative error {:.3e}",
+        worst.label, worst.max_rel_error
+    );
     assert!(report.max_rel_error() > 1e-3);
     // The affine layer after the bad one is unaffected; the ones before it are flagged.
-    assert!(report.tensors[0].max_rel_error > 1e-3, "{:?}", report.tensors[0]);
-    assert!(report.tensors[2].max_rel_error <= TOLERANCE, "{:?}", report.tensors[2]);
+    assert!(
+        report.tensors[0].max_rel_error > 1e-3,
+        "{:?}",
+        report.tensors[0]
+    );
+    assert!(
+        report.tensors[2].max_rel_error <= TOLERANCE,
+        "{:?}",
+        report.tensors[2]
+    );
 }

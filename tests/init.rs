@@ -23,10 +23,28 @@ fn sample_variance_of_a_512_by_512_draw_is_within_3_percent_of_the_formula() {
     type Formula = fn(f64, f64) -> f64;
     let schemes = |draw| -> Vec<(Init, Formula)> {
         vec![
-            (Init::He { draw, fan: Fan::In, slope: 0.0 }, |fi: f64, _fo: f64| 2.0 / fi),
-            (Init::He { draw, fan: Fan::Out, slope: 0.0 }, |_fi: f64, fo: f64| 2.0 / fo),
             (
-                Init::He { draw, fan: Fan::In, slope: 0.25 },
+                Init::He {
+                    draw,
+                    fan: Fan::In,
+                    slope: 0.0,
+                },
+                |fi: f64, _fo: f64| 2.0 / fi,
+            ),
+            (
+                Init::He {
+                    draw,
+                    fan: Fan::Out,
+                    slope: 0.0,
+                },
+                |_fi: f64, fo: f64| 2.0 / fo,
+            ),
+            (
+                Init::He {
+                    draw,
+                    fan: Fan::In,
+                    slope: 0.25,
+                },
                 |fi: f64, _fo: f64| 2.0 / ((1.0 + 0.0625) * fi),
             ),
             (Init::Glorot { draw }, |fi: f64, fo: f64| 2.0 / (fi + fo)),
@@ -41,8 +59,14 @@ fn sample_variance_of_a_512_by_512_draw_is_within_3_percent_of_the_formula() {
                 let w = draw(init, fi, fo, 11);
                 let (mean, var) = mean_and_variance(&w);
                 let rel = (var - expected).abs() / expected;
-                assert!(rel < 0.03, "{init:?} {fi}x{fo}: variance {var:e} vs {expected:e}");
-                assert!(mean.abs() < 4.0 * (expected / w.len() as f64).sqrt(), "{init:?}: mean {mean}");
+                assert!(
+                    rel < 0.03,
+                    "{init:?} {fi}x{fo}: variance {var:e} vs {expected:e}"
+                );
+                assert!(
+                    mean.abs() < 4.0 * (expected / w.len() as f64).sqrt(),
+                    "{init:?}: mean {mean}"
+                );
             }
         }
     }
@@ -54,15 +78,35 @@ fn uniform_draws_stay_inside_the_exact_bounds() {
     // He uniform: ±√(6/fan_in); LeCun uniform: ±√(3/fan_in) (variance 1/fan_in).
     let (fi, fo) = (512, 512);
     let cases = [
-        (Init::Glorot { draw: Draw::Uniform }, (6.0 / (fi + fo) as f64).sqrt()),
-        (Init::He { draw: Draw::Uniform, fan: Fan::In, slope: 0.0 }, (6.0 / fi as f64).sqrt()),
-        (Init::Lecun { draw: Draw::Uniform }, (3.0 / fi as f64).sqrt()),
+        (
+            Init::Glorot {
+                draw: Draw::Uniform,
+            },
+            (6.0 / (fi + fo) as f64).sqrt(),
+        ),
+        (
+            Init::He {
+                draw: Draw::Uniform,
+                fan: Fan::In,
+                slope: 0.0,
+            },
+            (6.0 / fi as f64).sqrt(),
+        ),
+        (
+            Init::Lecun {
+                draw: Draw::Uniform,
+            },
+            (3.0 / fi as f64).sqrt(),
+        ),
     ];
     for (init, limit) in cases {
         let w = draw(init, fi, fo, 5);
         let max = w.iter().fold(0.0_f64, |m, v| m.max(v.abs()));
         assert!(max <= limit, "{init:?}: {max} > {limit}");
-        assert!(max > 0.999 * limit, "{init:?}: draws do not reach the bound ({max} vs {limit})");
+        assert!(
+            max > 0.999 * limit,
+            "{init:?}: draws do not reach the bound ({max} vs {limit})"
+        );
     }
 }
 
@@ -72,14 +116,27 @@ fn orthogonal_matrices_have_orthonormal_columns_or_rows() {
     for (rows, cols) in [(64, 64), (100, 30), (20, 70)] {
         let w = draw(Init::Orthogonal { gain: 1.0 }, rows, cols, 3);
         let at = |i: usize, j: usize| w[i * cols + j];
-        let (n, m, by_cols) = if rows >= cols { (cols, rows, true) } else { (rows, cols, false) };
+        let (n, m, by_cols) = if rows >= cols {
+            (cols, rows, true)
+        } else {
+            (rows, cols, false)
+        };
         for a in 0..n {
             for b in 0..n {
                 let dot: f64 = (0..m)
-                    .map(|k| if by_cols { at(k, a) * at(k, b) } else { at(a, k) * at(b, k) })
+                    .map(|k| {
+                        if by_cols {
+                            at(k, a) * at(k, b)
+                        } else {
+                            at(a, k) * at(b, k)
+                        }
+                    })
                     .sum();
                 let expected = if a == b { 1.0 } else { 0.0 };
-                assert!((dot - expected).abs() < 1e-12, "{rows}x{cols} ({a},{b}): {dot}");
+                assert!(
+                    (dot - expected).abs() < 1e-12,
+                    "{rows}x{cols} ({a},{b}): {dot}"
+                );
             }
         }
     }
@@ -96,7 +153,9 @@ fn draws_depend_only_on_the_seed() {
     assert_eq!(a, b);
     assert_ne!(a, c);
     assert!(draw(Init::ZERO, 4, 4, 1).iter().all(|&v| v == 0.0));
-    assert!(draw(Init::Constant { value: 0.5 }, 2, 3, 1).iter().all(|&v| v == 0.5));
+    assert!(draw(Init::Constant { value: 0.5 }, 2, 3, 1)
+        .iter()
+        .all(|&v| v == 0.5));
 }
 
 #[test]
@@ -104,7 +163,10 @@ fn names_parse_and_unknown_names_are_refused() {
     assert_eq!("he".parse::<Init>().unwrap(), Init::HE);
     assert_eq!("glorot".parse::<Init>().unwrap(), Init::GLOROT);
     assert_eq!("lecun".parse::<Init>().unwrap(), Init::LECUN);
-    assert!(matches!("orthogonal".parse::<Init>().unwrap(), Init::Orthogonal { .. }));
+    assert!(matches!(
+        "orthogonal".parse::<Init>().unwrap(),
+        Init::Orthogonal { .. }
+    ));
     let err = "xavier2".parse::<Init>().unwrap_err().to_string();
     assert!(err.contains("xavier2") && err.contains("glorot"), "{err}");
 }

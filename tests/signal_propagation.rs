@@ -22,7 +22,9 @@ fn glorot_init_shrinks_the_second_moment_through_30_relu_layers() {
     // Glorot & Bengio 2010 give Var[w] = 2/(n_in+n_out) = 1/n here; with ReLU, half of each
     // layer's variance is lost (He et al. 2015, Sec. 2.2), so 30 layers shrink it by ~2^-30.
     let x = normal_matrix(512, 256, 1);
-    let glorot_normal = Init::Glorot { draw: relume::Draw::Normal };
+    let glorot_normal = Init::Glorot {
+        draw: relume::Draw::Normal,
+    };
     let mut net = square_stack::<f64>(256, 30, glorot_normal, Activation::Relu, 2);
     let out = net.forward(x.view(), Pass::Infer).unwrap().to_owned();
     let ratio = second_moment(&out) / second_moment(&x);

@@ -103,7 +103,9 @@ impl<F: Scalar> Layer<F> for Affine<F> {
         let (w, b) = self.split(params);
         self.out.reshape(input.nrows(), self.outputs);
         let mut out = self.out.view_mut();
-        out.rows_mut().into_iter().for_each(|mut row| row.assign(&b));
+        out.rows_mut()
+            .into_iter()
+            .for_each(|mut row| row.assign(&b));
         general_mat_mul(F::one(), &input, &w, F::one(), &mut out);
     }
 
