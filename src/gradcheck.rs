@@ -1,17 +1,20 @@
 //! Finite-difference gradient checker.
 //!
-//! Compares the analytic gradient of `loss(network(x), y)` with respect to every parameter (and
-//! optionally every input) against a five-point central difference in `f64`:
+//! Compares the analytic gradient of `loss(network(x), y) + penalty(θ)` with respect to every
+//! parameter (and optionally every input) against a five-point central difference in `f64`:
 //! g ≈ (−L(θ+2h) + 8L(θ+h) − 8L(θ−h) + L(θ−2h)) / 12h, whose truncation error is O(h⁴).
 //! The relative error of an entry is |a − n| / max(|a|, |n|, floor); the floor keeps entries
 //! whose true gradient is (near) zero from turning rounding noise into large relative errors.
-//! Stochastic layers are held at one noise draw for the whole check.
+//! Stochastic layers are held at one noise draw for the whole check. A proximal L1 term is not
+//! part of the gradient, so only the smooth part of the penalty is checked.
 
 use crate::error::ShapeError;
 use crate::layer::Pass;
-use crate::loss::Loss;
 use crate::network::Network;
+use crate::objective::Objective;
+use crate::penalty::Penalty;
 use ndarray::{Array2, ArrayView2};
+use std::ops::Range;
 
 /// Settings of a gradient check.
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -88,37 +91,68 @@ impl GradReport {
     }
 }
 
-/// Checks the gradients of `loss(net(x), y)`; see the module docs.
+/// Checks the gradients of `objective` (a [`crate::Loss`] or an [`Objective`] with a penalty)
+/// at the network's current parameters; see the module docs.
 pub fn check_gradients(
     net: &mut Network<f64>,
-    loss: Loss,
+    objective: impl Into<Objective>,
     x: ArrayView2<'_, f64>,
     y: ArrayView2<'_, f64>,
     options: CheckOptions,
 ) -> Result<GradReport, ShapeError> {
+    let objective = objective.into();
+    let objective = Objective::new(objective.loss, objective.penalty.smooth_part());
     // Draw the noise once, then hold it for every evaluation below.
     net.forward(x, options.pass)?;
     net.hold_noise(true);
-    let result = run_check(net, loss, x, y, options);
+    let result = run_check(net, objective, x, y, options);
     net.hold_noise(false);
     result
 }
 
+/// The objective's pieces the check evaluates again and again.
+struct Target<'a> {
+    objective: Objective,
+    ranges: Vec<Range<usize>>,
+    y: ArrayView2<'a, f64>,
+    pass: Pass,
+}
+
+impl Target<'_> {
+    fn value(&self, net: &mut Network<f64>, x: ArrayView2<'_, f64>) -> Result<f64, ShapeError> {
+        let out = net.forward(x, self.pass)?;
+        let data = self.objective.loss.value(out, self.y)?;
+        Ok(data + self.penalty().value(net.params(), &self.ranges))
+    }
+
+    fn penalty(&self) -> &Penalty {
+        &self.objective.penalty
+    }
+}
+
 fn run_check(
     net: &mut Network<f64>,
-    loss: Loss,
+    objective: Objective,
     x: ArrayView2<'_, f64>,
     y: ArrayView2<'_, f64>,
     options: CheckOptions,
 ) -> Result<GradReport, ShapeError> {
-    let pass = options.pass;
+    let target = Target {
+        objective,
+        ranges: objective.penalty.ranges(net),
+        y,
+        pass: options.pass,
+    };
     // Analytic gradients.
     net.zero_grads();
-    let out = net.forward(x, pass)?.to_owned();
+    let out = net.forward(x, target.pass)?.to_owned();
     let mut top = Array2::zeros(out.dim());
-    loss.gradient_into(out.view(), y, top.view_mut())?;
+    objective.loss.gradient_into(out.view(), y, top.view_mut())?;
     let input_grad = net.backward(top.view())?.to_owned();
-    let analytic = net.grads().to_vec();
+    let mut analytic = net.grads().to_vec();
+    target
+        .penalty()
+        .add_gradient(net.params(), &mut analytic, &target.ranges);
 
     let mut tensors = Vec::new();
     for info in net.tensors() {
@@ -127,7 +161,7 @@ fn run_check(
             let original = net.params()[p];
             let numeric = five_point(original, options.step, |v| {
                 net.params_mut()[p] = v;
-                objective(net, loss, x, y, pass)
+                target.value(net, x)
             })?;
             net.params_mut()[p] = original;
             entries.push(compare(k, analytic[p], numeric, options.floor));
@@ -144,7 +178,7 @@ fn run_check(
             let original = probe[(r, c)];
             let numeric = five_point(original, options.step, |v| {
                 probe[(r, c)] = v;
-                objective(net, loss, probe.view(), y, pass)
+                target.value(net, probe.view())
             })?;
             probe[(r, c)] = original;
             entries.push(compare(k, input_grad[(r, c)], numeric, options.floor));
@@ -152,17 +186,6 @@ fn run_check(
         tensors.push(summarize("input".to_string(), entries, options.worst));
     }
     Ok(GradReport { tensors })
-}
-
-fn objective(
-    net: &mut Network<f64>,
-    loss: Loss,
-    x: ArrayView2<'_, f64>,
-    y: ArrayView2<'_, f64>,
-    pass: Pass,
-) -> Result<f64, ShapeError> {
-    let out = net.forward(x, pass)?;
-    loss.value(out, y)
 }
 
 /// Five-point central difference of `f` at `at`, step h·max(1, |at|).

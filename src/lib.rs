@@ -33,8 +33,12 @@ pub mod init;
 pub mod layer;
 pub mod loss;
 pub mod network;
+pub mod objective;
 pub mod optim;
+pub mod penalty;
 pub mod scalar;
+pub mod schedule;
+pub mod train;
 
 pub use activation::Activation;
 pub use error::{ConfigError, ShapeError};
@@ -43,7 +47,11 @@ pub use init::{Draw, Fan, Init};
 pub use layer::{Layer, LayerSpec, Pass};
 pub use loss::Loss;
 pub use network::{Network, NetworkPlan};
-pub use optim::{Adam, Optimizer};
+pub use objective::Objective;
+pub use optim::{Adam, Optimizer, OptimizerChoice};
+pub use penalty::Penalty;
+pub use schedule::Schedule;
+pub use train::{train, TrainConfig, TrainError, TrainSummary};
 pub use scalar::Scalar;
 
 /// The README's code, compiled and run as a doctest so it stays true.

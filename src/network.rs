@@ -157,6 +157,11 @@ impl<F: Scalar> Network<F> {
         (&mut self.params, &self.grads)
     }
 
+    /// Parameters (read-only) and gradients (mutable) together, for adding penalty gradients.
+    pub fn grads_with_params(&mut self) -> (&[F], &mut [F]) {
+        (&self.params, &mut self.grads)
+    }
+
     /// Sets every gradient to zero.
     pub fn zero_grads(&mut self) {
         self.grads.fill(F::zero());

@@ -1,9 +1,11 @@
-//! Adam (Kingma & Ba 2015) with bias correction.
+//! Adam (Kingma & Ba 2015) with bias correction; AMSGrad (Reddi et al. 2018) and decoupled
+//! weight decay (AdamW, Loshchilov & Hutter 2019) as options.
 
-use super::Optimizer;
+use super::{fit_state, Optimizer};
 use crate::scalar::Scalar;
 
-/// Adam: per-parameter steps from bias-corrected first and second moment estimates.
+/// Adam: per-parameter steps from bias-corrected first and second moment estimates,
+/// θ ← θ − α·m̂/(√v̂ + ε), with m̂ = m/(1 − β1ᵗ) and v̂ = v/(1 − β2ᵗ).
 #[derive(Clone, Debug)]
 pub struct Adam<F> {
     /// Learning rate (step size α).
@@ -14,8 +16,12 @@ pub struct Adam<F> {
     pub beta2: f64,
     /// Denominator guard (1e-8 in the paper).
     pub eps: f64,
+    amsgrad: bool,
+    decay: f64,
+    decay_mask: Vec<bool>,
     m: Vec<F>,
     v: Vec<F>,
+    v_max: Vec<F>,
     t: i32,
 }
 
@@ -27,36 +33,61 @@ impl<F: Scalar> Adam<F> {
             beta1: 0.9,
             beta2: 0.999,
             eps: 1e-8,
+            amsgrad: false,
+            decay: 0.0,
+            decay_mask: Vec::new(),
             m: Vec::new(),
             v: Vec::new(),
+            v_max: Vec::new(),
             t: 0,
         }
+    }
+
+    /// Uses the running maximum of v in the denominator (AMSGrad).
+    pub fn amsgrad(mut self, on: bool) -> Self {
+        self.amsgrad = on;
+        self
+    }
+
+    /// Decoupled weight decay λ: after each step, θ ← θ − lr·λ·θ on the entries the decay mask
+    /// selects (all entries if no mask is set).
+    pub fn decoupled_decay(mut self, decay: f64) -> Self {
+        self.decay = decay;
+        self
     }
 }
 
 impl<F: Scalar> Optimizer<F> for Adam<F> {
     fn step(&mut self, params: &mut [F], grads: &[F]) {
-        if self.m.len() != params.len() {
-            self.m = vec![F::zero(); params.len()];
-            self.v = vec![F::zero(); params.len()];
+        if fit_state(&mut self.m, params.len()) {
             self.t = 0;
         }
+        fit_state(&mut self.v, params.len());
+        if self.amsgrad {
+            fit_state(&mut self.v_max, params.len());
+        }
         self.t = self.t.saturating_add(1);
-        let (b1, b2) = (self.beta1, self.beta2);
-        // Fold both bias corrections into the step size, as in Section 2 of the paper.
-        let step = self.lr * (1.0 - b2.powi(self.t)).sqrt() / (1.0 - b1.powi(self.t));
-        let correction2 = (1.0 - b2.powi(self.t)).sqrt();
-        let (b1, b2, step) = (F::of(b1), F::of(b2), F::of(step));
-        let eps = F::of(self.eps * correction2);
-        let one = F::one();
-        for ((p, &g), (m, v)) in params
-            .iter_mut()
-            .zip(grads)
-            .zip(self.m.iter_mut().zip(self.v.iter_mut()))
-        {
-            *m = b1 * *m + (one - b1) * g;
-            *v = b2 * *v + (one - b2) * g * g;
-            *p -= step * *m / (v.sqrt() + eps);
+        let c1 = 1.0 - self.beta1.powi(self.t);
+        let c2 = 1.0 - self.beta2.powi(self.t);
+        let (b1, b2, one) = (F::of(self.beta1), F::of(self.beta2), F::one());
+        let (inv_c1, inv_c2, eps) = (F::of(1.0 / c1), F::of(1.0 / c2), F::of(self.eps));
+        let lr = F::of(self.lr);
+        let shrink = F::of(1.0 - self.lr * self.decay);
+        for i in 0..params.len() {
+            let g = grads[i];
+            let m = b1 * self.m[i] + (one - b1) * g;
+            let mut v = b2 * self.v[i] + (one - b2) * g * g;
+            self.m[i] = m;
+            self.v[i] = v;
+            if self.amsgrad {
+                v = v.max(self.v_max[i]);
+                self.v_max[i] = v;
+            }
+            let p = &mut params[i];
+            if self.decay > 0.0 && self.decay_mask.get(i).copied().unwrap_or(true) {
+                *p *= shrink;
+            }
+            *p -= lr * (m * inv_c1) / ((v * inv_c2).sqrt() + eps);
         }
     }
 
@@ -71,6 +102,11 @@ impl<F: Scalar> Optimizer<F> for Adam<F> {
     fn reset(&mut self) {
         self.m.clear();
         self.v.clear();
+        self.v_max.clear();
         self.t = 0;
+    }
+
+    fn set_decay_mask(&mut self, mask: &[bool]) {
+        self.decay_mask = mask.to_vec();
     }
 }
