@@ -128,7 +128,9 @@ impl RateTracker {
         else {
             return;
         };
-        if val_loss < self.best - PLATEAU_MIN_IMPROVEMENT * self.best.abs() {
+        let improved = !self.best.is_finite()
+            || val_loss < self.best - PLATEAU_MIN_IMPROVEMENT * self.best.abs();
+        if improved {
             self.best = val_loss;
             self.waited = 0;
         } else {
