@@ -147,7 +147,9 @@ fn run_check(
     net.zero_grads();
     let out = net.forward(x, target.pass)?.to_owned();
     let mut top = Array2::zeros(out.dim());
-    objective.loss.gradient_into(out.view(), y, top.view_mut())?;
+    objective
+        .loss
+        .gradient_into(out.view(), y, top.view_mut())?;
     let input_grad = net.backward(top.view())?.to_owned();
     let mut analytic = net.grads().to_vec();
     target

@@ -36,7 +36,9 @@ pub mod network;
 pub mod objective;
 pub mod optim;
 pub mod penalty;
+pub mod recipe;
 pub mod scalar;
+pub mod scale;
 pub mod schedule;
 pub mod train;
 
@@ -50,9 +52,11 @@ pub use network::{Network, NetworkPlan};
 pub use objective::Objective;
 pub use optim::{Adam, Optimizer, OptimizerChoice};
 pub use penalty::Penalty;
+pub use recipe::{Recipe, Trained};
+pub use scalar::Scalar;
+pub use scale::Standardizer;
 pub use schedule::Schedule;
 pub use train::{train, TrainConfig, TrainError, TrainSummary};
-pub use scalar::Scalar;
 
 /// The README's code, compiled and run as a doctest so it stays true.
 #[cfg(doctest)]

@@ -56,12 +56,18 @@ impl Penalty {
 
     /// L2 only, on weights.
     pub fn l2(l2: f64) -> Self {
-        Penalty { l2, ..Penalty::NONE }
+        Penalty {
+            l2,
+            ..Penalty::NONE
+        }
     }
 
     /// L1 only, on weights.
     pub fn l1(l1: f64) -> Self {
-        Penalty { l1, ..Penalty::NONE }
+        Penalty {
+            l1,
+            ..Penalty::NONE
+        }
     }
 
     /// Elastic net: both, on weights.

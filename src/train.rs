@@ -85,7 +85,10 @@ impl TrainConfig {
         if !(0.0..1.0).contains(&self.val_frac) {
             return bad(format!("val_frac must be in [0, 1), got {}", self.val_frac));
         }
-        for (name, v) in [("clip_norm", self.clip_norm), ("clip_value", self.clip_value)] {
+        for (name, v) in [
+            ("clip_norm", self.clip_norm),
+            ("clip_value", self.clip_value),
+        ] {
             if let Some(v) = v {
                 if !(v.is_finite() && v > 0.0) {
                     return bad(format!("{name} must be > 0, got {v}"));
@@ -403,7 +406,9 @@ impl<'a, F: Scalar> Run<'a, F> {
             return Ok(None);
         };
         let out = net.forward(vx.view(), Pass::Infer)?;
-        Ok(Some(self.config.objective.loss.value(out, vy.view())?.as_f64()))
+        Ok(Some(
+            self.config.objective.loss.value(out, vy.view())?.as_f64(),
+        ))
     }
 
     /// Bookkeeping at the end of an epoch: best weights, patience, observers.
@@ -517,7 +522,10 @@ impl<'a, F: Scalar> Run<'a, F> {
                     xb.row_mut(slot).assign(&self.split.x.row(i));
                     yb.row_mut(slot).assign(&self.split.y.row(i));
                 }
-                let (xv, yv) = (xb.slice(ndarray::s![..k, ..]), yb.slice(ndarray::s![..k, ..]));
+                let (xv, yv) = (
+                    xb.slice(ndarray::s![..k, ..]),
+                    yb.slice(ndarray::s![..k, ..]),
+                );
                 let mut tv = top.slice_mut(ndarray::s![..k, ..]);
                 match self.step(net, optimizer.as_mut(), xv, yv, tv.view_mut(), lr) {
                     Ok((loss, norm)) => {
@@ -528,7 +536,9 @@ impl<'a, F: Scalar> Run<'a, F> {
                             batch_loss: loss,
                             grad_norm: norm,
                         };
-                        observers.iter_mut().for_each(|o| o.after_step(&record, net));
+                        observers
+                            .iter_mut()
+                            .for_each(|o| o.after_step(&record, net));
                     }
                     Err(location) => {
                         failure = Some((Some(step), location));
@@ -612,7 +622,11 @@ impl<'a, F: Scalar> Run<'a, F> {
         if let Some(t) = non_finite_tensor(net, net.grads(), true) {
             return Err(format!("the gradient of {t}"));
         }
-        let norm = clip(net.grads_mut(), self.config.clip_value, self.config.clip_norm);
+        let norm = clip(
+            net.grads_mut(),
+            self.config.clip_value,
+            self.config.clip_norm,
+        );
         let (params, grads) = net.params_and_grads();
         optimizer.step(params, grads);
         objective.penalty.apply_proximal(params, &self.ranges, lr);
@@ -711,7 +725,9 @@ impl<F: Scalar> LbfgsProblem for FullBatch<'_, '_, '_, '_, '_, F> {
             return f64::NAN;
         }
         let mut g: Vec<F> = net.grads().to_vec();
-        objective.penalty.add_gradient(net.params(), &mut g, &run.ranges);
+        objective
+            .penalty
+            .add_gradient(net.params(), &mut g, &run.ranges);
         for (o, v) in grad.iter_mut().zip(&g) {
             *o = v.as_f64();
         }
@@ -783,7 +799,13 @@ impl StepStats {
         }
     }
 
-    fn record(&self, epoch: usize, lr: f64, val_loss: Option<f64>, started: Instant) -> EpochRecord {
+    fn record(
+        &self,
+        epoch: usize,
+        lr: f64,
+        val_loss: Option<f64>,
+        started: Instant,
+    ) -> EpochRecord {
         EpochRecord {
             epoch,
             train_loss: self.loss_sum / self.rows.max(1) as f64,
@@ -856,7 +878,8 @@ fn non_finite_tensor<F: Scalar>(net: &Network<F>, values: &[F], from_top: bool) 
     if values.iter().all(|v| v.is_finite()) {
         return None;
     }
-    let bad = |t: &crate::network::TensorInfo| values[t.range.clone()].iter().any(|v| !v.is_finite());
+    let bad =
+        |t: &crate::network::TensorInfo| values[t.range.clone()].iter().any(|v| !v.is_finite());
     let tensors = net.tensors();
     let found = if from_top {
         tensors.iter().rev().find(|t| bad(t))

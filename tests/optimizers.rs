@@ -10,7 +10,9 @@ fn first_adam_step_moves_each_parameter_by_lr_whatever_the_gradient_scale() {
     // Kingma & Ba 2015, Sec. 2.1: with bias correction the first step is α·g/(|g| + ε), about
     // ±α for |g| ≫ ε. ε is set to 1e-14 so that ε/|g| ≤ 1e-8 across the whole range 1e-6..1e6.
     let lr = 1e-3;
-    let grads: Vec<f64> = (-6..=6).flat_map(|e| [10f64.powi(e), -3.7 * 10f64.powi(e)]).collect();
+    let grads: Vec<f64> = (-6..=6)
+        .flat_map(|e| [10f64.powi(e), -3.7 * 10f64.powi(e)])
+        .collect();
     let mut params = vec![0.5; grads.len()];
     let mut adam = Adam::<f64>::new(lr);
     adam.eps = 1e-14;
@@ -18,7 +20,10 @@ fn first_adam_step_moves_each_parameter_by_lr_whatever_the_gradient_scale() {
     for (p, g) in params.iter().zip(&grads) {
         let moved = 0.5 - p;
         let rel = (moved - lr * g.signum()).abs() / lr;
-        assert!(rel <= 1e-6, "gradient {g:e}: moved {moved:e}, relative error {rel:e}");
+        assert!(
+            rel <= 1e-6,
+            "gradient {g:e}: moved {moved:e}, relative error {rel:e}"
+        );
     }
 }
 
@@ -62,7 +67,11 @@ fn heavy_ball_matches_the_closed_form_recurrence() {
     let m = Matrix2::new(1.0 - lr * CURVATURE, mu, -lr * CURVATURE, mu);
     for (t, &ours) in path.iter().enumerate() {
         let closed = m.pow(t as u32) * Vector2::new(start, 0.0);
-        assert!((ours - closed[0]).abs() <= 1e-12 * start, "step {t}: {ours} vs {}", closed[0]);
+        assert!(
+            (ours - closed[0]).abs() <= 1e-12 * start,
+            "step {t}: {ours} vs {}",
+            closed[0]
+        );
     }
 }
 
@@ -78,7 +87,10 @@ fn nesterov_matches_the_closed_form_recurrence() {
     for (t, &ours) in path.iter().enumerate() {
         let closed = m.pow(t as u32) * Vector2::new(start, 0.0);
         let lookahead = closed[0] + mu * closed[1];
-        assert!((ours - lookahead).abs() <= 1e-12 * start, "step {t}: {ours} vs {lookahead}");
+        assert!(
+            (ours - lookahead).abs() <= 1e-12 * start,
+            "step {t}: {ours} vs {lookahead}"
+        );
     }
 }
 
@@ -124,7 +136,10 @@ fn amsgrad_escapes_the_counterexample_where_adam_fails() {
     let (adam, ams) = (reddi_online_problem(false), reddi_online_problem(true));
     println!("Reddi et al. counterexample: Adam ends at {adam:.3}, AMSGrad at {ams:.3}");
     assert!(adam > 0.9, "Adam should drift to +1, got {adam}");
-    assert!(ams < -0.5, "AMSGrad should head for the optimum -1, got {ams}");
+    assert!(
+        ams < -0.5,
+        "AMSGrad should head for the optimum -1, got {ams}"
+    );
 }
 
 #[test]
@@ -133,7 +148,9 @@ fn adamw_decay_is_decoupled_from_the_gradient() {
     // in the gradient is normalized away by Adam. For a parameter whose loss gradient is 0:
     let (lr, lambda, theta) = (1e-2, 0.1, 2.0);
     let mut decoupled = [theta];
-    Adam::<f64>::new(lr).decoupled_decay(lambda).step(&mut decoupled, &[0.0]);
+    Adam::<f64>::new(lr)
+        .decoupled_decay(lambda)
+        .step(&mut decoupled, &[0.0]);
     assert!((decoupled[0] - theta * (1.0 - lr * lambda)).abs() < 1e-15);
     let mut coupled = [theta];
     // L2 penalty λ/2·θ² in the gradient: g = λθ; Adam's first step moves it by ≈ lr.
@@ -166,35 +183,69 @@ fn lbfgs_finds_the_rosenbrock_minimum() {
     let mut x = [-1.2, 1.0];
     let mut problem = Rosenbrock { evaluations: 0 };
     let outcome = Lbfgs::default().minimize(&mut x, &mut problem);
-    println!("Rosenbrock: {outcome:?} at {x:?} after {} evaluations", problem.evaluations);
-    assert!(matches!(outcome, LbfgsOutcome::Converged | LbfgsOutcome::LineSearchFailed));
-    assert!((x[0] - 1.0).abs() < 1e-8 && (x[1] - 1.0).abs() < 1e-8, "{x:?}");
+    println!(
+        "Rosenbrock: {outcome:?} at {x:?} after {} evaluations",
+        problem.evaluations
+    );
+    assert!(matches!(
+        outcome,
+        LbfgsOutcome::Converged | LbfgsOutcome::LineSearchFailed
+    ));
+    assert!(
+        (x[0] - 1.0).abs() < 1e-8 && (x[1] - 1.0).abs() < 1e-8,
+        "{x:?}"
+    );
     assert!(problem.evaluations < 200);
 }
 
 #[test]
 fn schedules_follow_their_formulas() {
     let base = 0.1;
-    let step = Schedule::Step { every: 10, factor: 0.5 }.start(base);
+    let step = Schedule::Step {
+        every: 10,
+        factor: 0.5,
+    }
+    .start(base);
     assert_eq!(step.rate(0), 0.1);
     assert_eq!(step.rate(9), 0.1);
     assert_eq!(step.rate(10), 0.05);
     assert_eq!(step.rate(25), 0.025);
     let exp = Schedule::Exponential { gamma: 0.9 }.start(base);
     assert!((exp.rate(3) - 0.1 * 0.729).abs() < 1e-15);
-    let cos = Schedule::Cosine { warmup: 5, total: 105, floor: 0.0 }.start(base);
+    let cos = Schedule::Cosine {
+        warmup: 5,
+        total: 105,
+        floor: 0.0,
+    }
+    .start(base);
     assert!((cos.rate(0) - 0.02).abs() < 1e-15);
     assert!((cos.rate(4) - 0.1).abs() < 1e-15);
     assert!((cos.rate(5) - 0.1).abs() < 1e-15);
-    assert!((cos.rate(55) - 0.05).abs() < 1e-12, "half way: {}", cos.rate(55));
+    assert!(
+        (cos.rate(55) - 0.05).abs() < 1e-12,
+        "half way: {}",
+        cos.rate(55)
+    );
     assert!(cos.rate(105).abs() < 1e-15);
-    let mut plateau = Schedule::Plateau { patience: 2, factor: 0.5, min_fraction: 0.2 }.start(base);
+    let mut plateau = Schedule::Plateau {
+        patience: 2,
+        factor: 0.5,
+        min_fraction: 0.2,
+    }
+    .start(base);
     for loss in [1.0, 0.9, 0.9, 0.9] {
         plateau.observe(loss);
     }
-    assert_eq!(plateau.rate(4), 0.05, "cut after two epochs without improvement");
+    assert_eq!(
+        plateau.rate(4),
+        0.05,
+        "cut after two epochs without improvement"
+    );
     for _ in 0..10 {
         plateau.observe(0.9);
     }
-    assert!((plateau.rate(14) - 0.02).abs() < 1e-15, "never below the floor");
+    assert!(
+        (plateau.rate(14) - 0.02).abs() < 1e-15,
+        "never below the floor"
+    );
 }

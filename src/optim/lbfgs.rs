@@ -1,5 +1,7 @@
-//! L-BFGS (Liu & Nocedal 1989) with a line search meeting the strong Wolfe conditions
-//! (Nocedal & Wright 2006, Algorithms 3.5 and 3.6), for full-batch training of small tables.
+//! L-BFGS (Liu & Nocedal 1989) for full-batch training of small tables, with a line search
+//! meeting the weak Wolfe conditions (Lewis & Overton 2013, "Nonsmooth optimization via
+//! quasi-Newton methods"): rectifier networks are only piecewise smooth, and the weak form
+//! keeps the iterates off the kinks.
 
 use std::collections::VecDeque;
 
@@ -25,7 +27,7 @@ impl Default for Lbfgs {
             c1: 1e-4,
             c2: 0.9,
             grad_tol: 1e-10,
-            max_line_evals: 25,
+            max_line_evals: 60,
         }
     }
 }
@@ -113,10 +115,15 @@ impl Lbfgs {
                     },
                 }
             };
-            let Some(accepted) = self.line_search(start, first_step, &mut |s| {
-                eval(s, &mut trial_grad)
-            }) else {
-                return LbfgsOutcome::LineSearchFailed;
+            let Some(accepted) =
+                self.line_search(start, first_step, &mut |s| eval(s, &mut trial_grad))
+            else {
+                if pairs.is_empty() {
+                    return LbfgsOutcome::LineSearchFailed;
+                }
+                // Stale curvature pairs can point badly; retry once from steepest descent.
+                pairs.clear();
+                continue;
             };
             // Re-evaluate at the accepted step so grad matches x exactly.
             let step = accepted.step;
@@ -141,88 +148,37 @@ impl Lbfgs {
         unreachable!("the iteration loop only ends by returning")
     }
 
-    /// Algorithm 3.5 of Nocedal & Wright: find a step meeting the strong Wolfe conditions.
+    /// Bracketing line search for the weak Wolfe conditions (Lewis & Overton 2013, Sec. 4.2):
+    /// f(t) ≤ f(0) + c1·t·f'(0) and f'(t) ≥ c2·f'(0). Unlike the strong form it accepts a
+    /// step past a kink where the slope turns positive, so on ReLU networks it does not get
+    /// pinned to the kinks. If the budget runs out, the last step that met the first condition
+    /// is taken (None if there was none).
     fn line_search(
         &self,
         start: Trial,
         first_step: f64,
         eval: &mut dyn FnMut(f64) -> Trial,
     ) -> Option<Trial> {
-        let mut previous = start;
+        let (mut low, mut high) = (0.0_f64, f64::INFINITY);
+        let mut sufficient: Option<Trial> = None;
         let mut step = first_step;
-        for i in 0..self.max_line_evals {
+        for _ in 0..self.max_line_evals {
             let trial = eval(step);
-            if trial.value > start.value + self.c1 * step * start.slope
-                || (i > 0 && trial.value >= previous.value)
-            {
-                return self.zoom(start, previous, trial, eval);
-            }
-            if trial.slope.abs() <= -self.c2 * start.slope {
+            if !(trial.value <= start.value + self.c1 * step * start.slope) {
+                high = step;
+            } else if trial.slope < self.c2 * start.slope {
+                low = step;
+                sufficient = Some(trial);
+            } else {
                 return Some(trial);
             }
-            if trial.slope >= 0.0 {
-                return self.zoom(start, trial, previous, eval);
-            }
-            previous = trial;
-            step *= 2.0;
-        }
-        None
-    }
-
-    /// Algorithm 3.6 of Nocedal & Wright, with safeguarded cubic interpolation.
-    fn zoom(
-        &self,
-        start: Trial,
-        mut lo: Trial,
-        mut hi: Trial,
-        eval: &mut dyn FnMut(f64) -> Trial,
-    ) -> Option<Trial> {
-        for _ in 0..self.max_line_evals {
-            let step = interpolate(lo, hi);
-            let trial = eval(step);
-            if trial.value > start.value + self.c1 * step * start.slope || trial.value >= lo.value
-            {
-                hi = trial;
+            step = if high.is_finite() {
+                0.5 * (low + high)
             } else {
-                if trial.slope.abs() <= -self.c2 * start.slope {
-                    return Some(trial);
-                }
-                if trial.slope * (hi.step - lo.step) >= 0.0 {
-                    hi = lo;
-                }
-                lo = trial;
-            }
-            if (hi.step - lo.step).abs() <= 1e-16 * lo.step.abs().max(1e-300) {
-                break;
-            }
+                2.0 * low
+            };
         }
-        // The bracket collapsed: accept the best point if it decreased the objective at all.
-        (lo.step > 0.0 && lo.value < start.value).then_some(lo)
-    }
-}
-
-/// Minimizer of the cubic through two trials, kept inside the middle 80% of the bracket
-/// (bisection when the cubic is unusable, e.g. a trial at +∞).
-fn interpolate(a: Trial, b: Trial) -> f64 {
-    let (lo, hi) = if a.step < b.step { (a, b) } else { (b, a) };
-    let width = hi.step - lo.step;
-    let mid = lo.step + 0.5 * width;
-    if !(lo.value.is_finite() && hi.value.is_finite() && lo.slope.is_finite() && hi.slope.is_finite())
-    {
-        return mid;
-    }
-    let d1 = lo.slope + hi.slope - 3.0 * (lo.value - hi.value) / (lo.step - hi.step);
-    let disc = d1 * d1 - lo.slope * hi.slope;
-    if disc < 0.0 {
-        return mid;
-    }
-    let d2 = disc.sqrt();
-    let step = hi.step - width * (hi.slope + d2 - d1) / (hi.slope - lo.slope + 2.0 * d2);
-    let (min, max) = (lo.step + 0.1 * width, hi.step - 0.1 * width);
-    if step.is_finite() {
-        step.clamp(min, max)
-    } else {
-        mid
+        sufficient
     }
 }
 
@@ -232,7 +188,10 @@ fn two_loop(grad: &[f64], pairs: &VecDeque<(Vec<f64>, Vec<f64>, f64)>, direction
     let mut alphas = Vec::with_capacity(pairs.len());
     for (s, y, rho) in pairs.iter().rev() {
         let alpha = rho * dot(s, direction);
-        direction.iter_mut().zip(y).for_each(|(d, yi)| *d -= alpha * yi);
+        direction
+            .iter_mut()
+            .zip(y)
+            .for_each(|(d, yi)| *d -= alpha * yi);
         alphas.push(alpha);
     }
     if let Some((s, y, _)) = pairs.back() {
@@ -241,7 +200,10 @@ fn two_loop(grad: &[f64], pairs: &VecDeque<(Vec<f64>, Vec<f64>, f64)>, direction
     }
     for ((s, y, rho), alpha) in pairs.iter().zip(alphas.iter().rev()) {
         let beta = rho * dot(y, direction);
-        direction.iter_mut().zip(s).for_each(|(d, si)| *d += (alpha - beta) * si);
+        direction
+            .iter_mut()
+            .zip(s)
+            .for_each(|(d, si)| *d += (alpha - beta) * si);
     }
 }
 

@@ -40,7 +40,10 @@ impl<F: Scalar> Optimizer<F> for Sgd<F> {
     fn step(&mut self, params: &mut [F], grads: &[F]) {
         let lr = F::of(self.lr);
         if self.momentum == 0.0 {
-            params.iter_mut().zip(grads).for_each(|(p, &g)| *p -= lr * g);
+            params
+                .iter_mut()
+                .zip(grads)
+                .for_each(|(p, &g)| *p -= lr * g);
             return;
         }
         fit_state(&mut self.velocity, params.len());
