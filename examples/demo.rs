@@ -5,15 +5,14 @@
 //! The table must have the demo's columns (see examples/data/README.md).
 
 use ndarray::{Array1, Array2, Axis};
-use rand::seq::SliceRandom;
-use rand::SeedableRng;
-use relume::{Activation, Adam, Loss, NetworkPlan, Optimizer, Pass};
+use relume::Recipe;
 use std::error::Error;
 
 const FEATURES: [&str; 4] = ["outdoor_c", "setpoint_c", "door_openings_per_h", "load_t"];
 const TARGET: &str = "power_kw";
 /// Noise SD of the generating formula (examples/make_demo_data.rs).
 const NOISE_SD_KW: f64 = 0.25;
+/// Seed of the held-out split.
 const SEED: u64 = 7;
 
 fn load(path: &str) -> Result<(Array2<f32>, Array1<f32>), Box<dyn Error>> {
@@ -55,15 +54,6 @@ fn load(path: &str) -> Result<(Array2<f32>, Array1<f32>), Box<dyn Error>> {
     ))
 }
 
-/// Column means and standard deviations of the training rows (constant columns get SD 1).
-fn scaling(x: &Array2<f32>) -> (Array1<f32>, Array1<f32>) {
-    let mean = x.mean_axis(Axis(0)).expect("at least one row");
-    let sd = x
-        .std_axis(Axis(0), 0.0)
-        .mapv(|s| if s > 0.0 { s } else { 1.0 });
-    (mean, sd)
-}
-
 fn main() -> Result<(), Box<dyn Error>> {
     let default_path = concat!(env!("CARGO_MANIFEST_DIR"), "/examples/data/cold_store.csv");
     let path = std::env::args()
@@ -73,56 +63,34 @@ fn main() -> Result<(), Box<dyn Error>> {
     let rows = x.nrows();
     println!("{path}: {rows} rows, features {FEATURES:?}, target {TARGET}");
 
-    // Seeded 80/20 holdout split.
-    let mut order: Vec<usize> = (0..rows).collect();
-    order.shuffle(&mut rand_chacha::ChaCha8Rng::seed_from_u64(SEED));
-    let (train_idx, val_idx) = order.split_at(rows * 4 / 5);
-    let (x_train, x_val) = (x.select(Axis(0), train_idx), x.select(Axis(0), val_idx));
-    let (y_train, y_val) = (y.select(Axis(0), train_idx), y.select(Axis(0), val_idx));
+    // Seeded 80/20 split: the test rows are never seen in training.
+    let (train_idx, test_idx) = relume::train::holdout_indices(rows, rows / 5, SEED);
+    let pick = |m: &Array2<f32>, idx: &[usize]| m.select(Axis(0), idx);
+    let y = y.insert_axis(Axis(1));
+    let (x_train, y_train) = (pick(&x, &train_idx), pick(&y, &train_idx));
+    let (x_test, y_test) = (pick(&x, &test_idx), pick(&y, &test_idx));
 
-    // Scale inputs and target with the training rows only.
-    let (x_mean, x_sd) = scaling(&x_train);
-    let (y_mean, y_sd) = (y_train.mean().unwrap_or(0.0), y_train.std(0.0).max(1e-12));
-    let scale_x = |m: &Array2<f32>| (m - &x_mean) / &x_sd;
-    let (xs_train, xs_val) = (scale_x(&x_train), scale_x(&x_val));
-    let ys_train = ((&y_train - y_mean) / y_sd).insert_axis(Axis(1));
-
-    let mut net =
-        NetworkPlan::new(FEATURES.len(), &[32, 32], Activation::Relu).build::<f32>(SEED)?;
-    let mut adam = Adam::new(3e-3);
-    let (epochs, batch) = (150, 32);
-    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(SEED + 1);
-    let mut batch_order: Vec<usize> = (0..xs_train.nrows()).collect();
-    let mut grad = Array2::zeros((batch, 1));
-    for epoch in 0..epochs {
-        adam.set_learning_rate(3e-3 * (1.0 - 0.9 * epoch as f64 / epochs as f64));
-        batch_order.shuffle(&mut rng);
-        for chunk in batch_order.chunks(batch) {
-            let (xb, yb) = (
-                xs_train.select(Axis(0), chunk),
-                ys_train.select(Axis(0), chunk),
-            );
-            net.zero_grads();
-            let out = net.forward(xb.view(), Pass::Train)?;
-            let mut g = grad.slice_mut(ndarray::s![..chunk.len(), ..]);
-            Loss::Mse.gradient_into(out, yb.view(), g.view_mut())?;
-            net.backward(g.view())?;
-            let (params, grads) = net.params_and_grads();
-            adam.step(params, grads);
-        }
-    }
-
-    let pred = net
-        .predict(xs_val.view())?
-        .column(0)
-        .mapv(|p| p * y_sd + y_mean);
-    let rmse = |p: &Array1<f32>| ((p - &y_val).mapv(|e| e * e).mean().unwrap_or(0.0)).sqrt();
-    let baseline = Array1::from_elem(y_val.len(), y_mean);
-    println!("trained 4-32-32-1 ReLU, {epochs} epochs, batch {batch}, Adam");
+    // The default recipe: scaling, architecture, optimizer and early stopping chosen for us.
+    let recipe = Recipe::default();
+    let mut trained = recipe.fit(x_train.view(), y_train.view())?;
+    let summary = &trained.summary;
     println!(
-        "held-out RMSE        {:.3} kW ({} rows)",
+        "trained {} units {:?}, {} epochs (best {}), stopped by {:?}",
+        recipe.activation_for(x_train.nrows()),
+        recipe.hidden,
+        summary.history.len(),
+        summary.best_epoch,
+        summary.stop
+    );
+
+    let pred = trained.predict(x_test.view())?;
+    let rmse = |p: &Array2<f32>| ((p - &y_test).mapv(|e| e * e).mean().unwrap_or(0.0)).sqrt();
+    let mean = y_train.mean().unwrap_or(0.0);
+    let baseline = Array2::from_elem(y_test.dim(), mean);
+    println!(
+        "held-out RMSE         {:.3} kW ({} rows)",
         rmse(&pred),
-        y_val.len()
+        y_test.nrows()
     );
     println!("predict-the-mean RMSE {:.3} kW", rmse(&baseline));
     println!("noise floor (formula) {NOISE_SD_KW:.3} kW");

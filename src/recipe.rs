@@ -4,14 +4,16 @@
 //! The defaults, and why (DEVELOPERS.md has the measurements behind them):
 //! - inputs and target standardized on the training rows (common practice, no source; on
 //!   Longley it is what makes the ill-conditioned fit converge), un-scaled on output;
-//! - two hidden layers of 64 ReLU units with He initialization (He et al. 2015);
+//! - two hidden layers of 64 units with He initialization (He et al. 2015);
 //! - early stopping on a seeded 20% validation split, best weights restored;
-//! - tables up to [`SMALL_TABLE_ROWS`] training rows: full-batch L-BFGS (Liu & Nocedal 1989)
-//!   with no penalty, which fit the NIST StRD sets far better than Adam; below
-//!   [`TINY_TABLE_ROWS`] rows, no validation split;
-//! - larger tables: Adam (Kingma & Ba 2015) at 3e-3 in mini-batches of 32, an L2 penalty of
-//!   3e-4 on the weights and a halving of the rate after 10 epochs without progress: on
-//!   Friedman #1 and the demo table this beat plain Adam clearly (1.15 vs 1.33 test RMSE).
+//! - tables up to [`SMALL_TABLE_ROWS`] training rows: GELU units trained full batch with
+//!   L-BFGS (Liu & Nocedal 1989) and no penalty, which fit the NIST StRD sets far better than
+//!   Adam, and than ReLU units (L-BFGS models curvature, which a ReLU loss lacks between its
+//!   kinks); below [`TINY_TABLE_ROWS`] rows, no validation split;
+//! - larger tables: ReLU units, Adam (Kingma & Ba 2015) at 3e-3 in mini-batches of 32, an L2
+//!   penalty of 3e-4 on the weights and a halving of the rate after 10 epochs without
+//!   progress: on Friedman #1 and the demo table this beat plain Adam clearly (1.15 vs 1.33
+//!   test RMSE on Friedman #1).
 
 use crate::activation::Activation;
 use crate::error::ShapeError;
@@ -44,8 +46,9 @@ pub const LBFGS_PATIENCE: usize = 100;
 pub struct Recipe {
     /// Hidden layer widths.
     pub hidden: Vec<usize>,
-    /// Hidden activation.
-    pub activation: Activation,
+    /// Hidden activation; None picks by table size: GELU for small tables (trained with
+    /// L-BFGS, whose curvature model wants a smooth loss) and ReLU for larger ones.
+    pub activation: Option<Activation>,
     /// Hidden weight initializer (None: the activation's default).
     pub init: Option<Init>,
     /// Dropout after each hidden activation.
@@ -68,7 +71,7 @@ impl Default for Recipe {
     fn default() -> Self {
         Recipe {
             hidden: vec![64, 64],
-            activation: Activation::Relu,
+            activation: None,
             init: None,
             dropout: 0.0,
             scale_inputs: true,
@@ -142,13 +145,25 @@ impl Recipe {
         self
     }
 
-    /// The network plan for `inputs` input and `outputs` target columns.
-    pub fn plan(&self, inputs: usize, outputs: usize) -> NetworkPlan {
+    /// The activation this recipe uses for a table of `rows` rows.
+    pub fn activation_for(&self, rows: usize) -> Activation {
+        self.activation.unwrap_or_else(|| {
+            if self.config_for(rows).optimizer.is_full_batch() {
+                Activation::Gelu
+            } else {
+                Activation::Relu
+            }
+        })
+    }
+
+    /// The network plan for a table of `rows` rows with `inputs` input and `outputs` target
+    /// columns.
+    pub fn plan(&self, rows: usize, inputs: usize, outputs: usize) -> NetworkPlan {
         NetworkPlan {
             inputs,
             hidden: self.hidden.clone(),
             outputs,
-            activation: self.activation,
+            activation: self.activation_for(rows),
             init: self.init,
             dropout: self.dropout,
         }
@@ -170,7 +185,9 @@ impl Recipe {
         y: ArrayView2<'_, F>,
         observers: &mut [&mut dyn Observer<F>],
     ) -> Result<Trained<F>, TrainError> {
-        let mut network = self.plan(x.ncols(), y.ncols()).build::<F>(self.seed)?;
+        let mut network = self
+            .plan(x.nrows(), x.ncols(), y.ncols())
+            .build::<F>(self.seed)?;
         if x.nrows() != y.nrows() {
             return Err(ShapeError::new("targets", (x.nrows(), y.ncols()), y.dim()).into());
         }

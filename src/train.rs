@@ -379,6 +379,8 @@ struct Run<'a, F: Scalar> {
     history: Vec<EpochRecord>,
     rollbacks: Vec<Rollback>,
     best: Option<Best<F>>,
+    /// Score at the last improvement that counted for patience.
+    patience_reference: f64,
     since_best: usize,
 }
 
@@ -396,6 +398,7 @@ impl<'a, F: Scalar> Run<'a, F> {
             history: Vec::new(),
             rollbacks: Vec::new(),
             best: None,
+            patience_reference: f64::INFINITY,
             since_best: 0,
         }
     }
@@ -418,13 +421,16 @@ impl<'a, F: Scalar> Run<'a, F> {
         record: EpochRecord,
         observers: &mut [&mut dyn Observer<F>],
     ) -> EpochEnd {
-        // Without validation the training loss decides which weights are best.
+        // With validation the best validation loss decides which weights are kept, and only a
+        // relative improvement of at least `min_improvement` resets the patience count.
+        // Without validation the last epoch's weights are kept.
+        let has_val = record.val_loss.is_some();
         let score = record.val_loss.unwrap_or(record.train_loss);
-        let improved = match &self.best {
-            None => true,
-            Some(b) => score < b.val_loss - self.config.min_improvement * b.val_loss.abs(),
-        };
-        if improved {
+        let better = self
+            .best
+            .as_ref()
+            .is_none_or(|b| !has_val || score < b.val_loss);
+        if better {
             match &mut self.best {
                 Some(b) => {
                     b.params.copy_from_slice(net.params());
@@ -439,6 +445,12 @@ impl<'a, F: Scalar> Run<'a, F> {
                     })
                 }
             }
+        }
+        let reference = self.patience_reference;
+        if !reference.is_finite()
+            || score < reference - self.config.min_improvement * reference.abs()
+        {
+            self.patience_reference = score;
             self.since_best = 0;
         } else {
             self.since_best += 1;
@@ -507,7 +519,10 @@ impl<'a, F: Scalar> Run<'a, F> {
         let mut xb = Array2::<F>::zeros((batch, net.input_width()));
         let mut yb = Array2::<F>::zeros((batch, net.output_width()));
         let mut top = Array2::<F>::zeros((batch, net.output_width()));
-        let mut last_good = net.params().to_vec();
+        let initial = net.params().to_vec();
+        let mut last_good = initial.clone();
+        // Divergences since the last completed epoch.
+        let mut failures_in_a_row = 0;
         let mut epoch = 0;
         while epoch < config.epochs {
             let started = Instant::now();
@@ -558,7 +573,15 @@ impl<'a, F: Scalar> Run<'a, F> {
             };
             if let Some((step, location)) = failure {
                 // Divergence guard: restore, cut the rate, forget optimizer state, redo epoch.
-                net.params_mut().copy_from_slice(&last_good);
+                // If the last good weights fail again straight away they are themselves the
+                // trouble (finite but huge): start over from the initial weights.
+                failures_in_a_row += 1;
+                let anchor = if failures_in_a_row > 1 {
+                    &initial
+                } else {
+                    &last_good
+                };
+                net.params_mut().copy_from_slice(anchor);
                 optimizer.reset();
                 if self.rollbacks.len() >= config.max_rollbacks {
                     // Keep the best finite weights seen, if better than the last good ones.
@@ -581,6 +604,7 @@ impl<'a, F: Scalar> Run<'a, F> {
                 continue;
             }
             last_good.copy_from_slice(net.params());
+            failures_in_a_row = 0;
             if let Some(v) = val_loss {
                 rates.observe(v);
             }

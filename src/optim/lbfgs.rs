@@ -164,7 +164,9 @@ impl Lbfgs {
         let mut step = first_step;
         for _ in 0..self.max_line_evals {
             let trial = eval(step);
-            if !(trial.value <= start.value + self.c1 * step * start.slope) {
+            // A NaN value fails the first condition too.
+            let decreased = trial.value <= start.value + self.c1 * step * start.slope;
+            if !decreased {
                 high = step;
             } else if trial.slope < self.c2 * start.slope {
                 low = step;

@@ -3,6 +3,7 @@
 use ndarray::Array2;
 
 /// One NIST StRD data set.
+#[allow(dead_code)]
 pub struct NistSet {
     pub name: String,
     /// Predictors, one column per x.
@@ -14,13 +15,24 @@ pub struct NistSet {
 }
 
 fn number_after(text: &str, label: &str) -> f64 {
-    let line = text.lines().find(|l| l.trim_start().starts_with(label)).unwrap();
-    line[line.find(':').unwrap() + 1..].split_whitespace().next().unwrap().parse().unwrap()
+    let line = text
+        .lines()
+        .find(|l| l.trim_start().starts_with(label))
+        .unwrap();
+    line[line.find(':').unwrap() + 1..]
+        .split_whitespace()
+        .next()
+        .unwrap()
+        .parse()
+        .unwrap()
 }
 
 /// Parses `tests/data/nist-strd/NAME.dat`.
 pub fn load(name: &str) -> NistSet {
-    let path = format!("{}/tests/data/nist-strd/{name}.dat", env!("CARGO_MANIFEST_DIR"));
+    let path = format!(
+        "{}/tests/data/nist-strd/{name}.dat",
+        env!("CARGO_MANIFEST_DIR")
+    );
     let text = std::fs::read_to_string(&path).unwrap();
     let lines: Vec<&str> = text.lines().collect();
     // The column header of the data block: "Data:   y   x ..." (the first "Data:" line only
