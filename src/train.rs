@@ -748,11 +748,9 @@ impl<F: Scalar> LbfgsProblem for FullBatch<'_, '_, '_, '_, '_, F> {
         {
             return f64::NAN;
         }
-        let mut g: Vec<F> = net.grads().to_vec();
-        objective
-            .penalty
-            .add_gradient(net.params(), &mut g, &run.ranges);
-        for (o, v) in grad.iter_mut().zip(&g) {
+        let (params, grads) = net.grads_with_params();
+        objective.penalty.add_gradient(params, grads, &run.ranges);
+        for (o, v) in grad.iter_mut().zip(net.grads()) {
             *o = v.as_f64();
         }
         loss.as_f64() + objective.penalty.value(net.params(), &run.ranges)
