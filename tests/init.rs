@@ -72,6 +72,7 @@ fn sample_variance_of_a_512_by_512_draw_is_within_3_percent_of_the_formula() {
             }
         }
     }
+    println!("largest relative variance error over all schemes: {worst:.4}");
 }
 
 #[test]
