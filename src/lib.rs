@@ -26,17 +26,20 @@
 //! ```
 
 pub mod activation;
+pub mod atomic;
 mod buffer;
 pub mod error;
 pub mod gradcheck;
 pub mod init;
 pub mod layer;
 pub mod loss;
+pub mod monitor;
 pub mod network;
 pub mod objective;
 pub mod optim;
 pub mod penalty;
 pub mod recipe;
+pub mod report;
 pub mod scalar;
 pub mod scale;
 pub mod schedule;
@@ -48,11 +51,13 @@ pub use gradcheck::{check_gradients, CheckOptions, GradReport};
 pub use init::{Draw, Fan, Init};
 pub use layer::{Layer, LayerSpec, Pass};
 pub use loss::Loss;
+pub use monitor::{Monitor, MonitorConfig, Revival};
 pub use network::{Network, NetworkPlan};
 pub use objective::Objective;
 pub use optim::{Adam, Optimizer, OptimizerChoice};
 pub use penalty::Penalty;
 pub use recipe::{Recipe, Trained};
+pub use report::RunReport;
 pub use scalar::Scalar;
 pub use scale::Standardizer;
 pub use schedule::Schedule;

@@ -19,10 +19,12 @@ use crate::activation::Activation;
 use crate::error::ShapeError;
 use crate::init::Init;
 use crate::loss::Loss;
+use crate::monitor::{Monitor, MonitorConfig};
 use crate::network::{Network, NetworkPlan};
 use crate::objective::Objective;
 use crate::optim::OptimizerChoice;
 use crate::penalty::Penalty;
+use crate::report::{DataShape, RunReport};
 use crate::scalar::Scalar;
 use crate::scale::Standardizer;
 use crate::schedule::Schedule;
@@ -185,6 +187,29 @@ impl Recipe {
         y: ArrayView2<'_, F>,
         observers: &mut [&mut dyn Observer<F>],
     ) -> Result<Trained<F>, TrainError> {
+        Ok(self.fit_inner(x, y, observers, None)?.0)
+    }
+
+    /// [`Recipe::fit`] watched by a [`Monitor`] (probing up to [`PROBE_ROWS`] training rows),
+    /// returning the run report beside the trained model.
+    pub fn fit_reported<F: Scalar>(
+        &self,
+        x: ArrayView2<'_, F>,
+        y: ArrayView2<'_, F>,
+        monitor: MonitorConfig,
+        observers: &mut [&mut dyn Observer<F>],
+    ) -> Result<(Trained<F>, RunReport), TrainError> {
+        let (trained, report) = self.fit_inner(x, y, observers, Some(monitor))?;
+        Ok((trained, report.expect("a monitored run has a report")))
+    }
+
+    fn fit_inner<F: Scalar>(
+        &self,
+        x: ArrayView2<'_, F>,
+        y: ArrayView2<'_, F>,
+        observers: &mut [&mut dyn Observer<F>],
+        monitor: Option<MonitorConfig>,
+    ) -> Result<(Trained<F>, Option<RunReport>), TrainError> {
         let mut network = self
             .plan(x.nrows(), x.ncols(), y.ncols())
             .build::<F>(self.seed)?;
@@ -222,19 +247,101 @@ impl Recipe {
             )
         });
         let val_views = val.as_ref().map(|(vx, vy)| (vx.view(), vy.view()));
+        let mut watcher = monitor.map(|c| Monitor::new(probe_rows(xs.view()).view(), c));
+        let mut chain = Chain {
+            monitor: watcher.as_mut(),
+            rest: observers,
+        };
         let summary = train(
             &mut network,
             xs.view(),
             ys.view(),
             val_views,
             &config,
-            observers,
+            &mut [&mut chain],
         )?;
-        Ok(Trained {
-            network,
-            inputs,
-            target,
-            summary,
-        })
+        let report = watcher.as_ref().map(|m| {
+            let shape = DataShape {
+                train_rows: xs.nrows(),
+                val_rows: val.as_ref().map_or(0, |(v, _)| v.nrows()),
+                inputs: x.ncols(),
+                outputs: y.ncols(),
+            };
+            RunReport::new(
+                self.seed,
+                &config,
+                network.specs(),
+                shape,
+                &summary,
+                Some(m),
+            )
+        });
+        Ok((
+            Trained {
+                network,
+                inputs,
+                target,
+                summary,
+            },
+            report,
+        ))
     }
+}
+
+/// The monitor (if any) followed by the caller's observers, as one observer.
+struct Chain<'m, 'o, 'p, F: Scalar> {
+    monitor: Option<&'m mut Monitor<F>>,
+    rest: &'o mut [&'p mut dyn Observer<F>],
+}
+
+impl<F: Scalar> Chain<'_, '_, '_, F> {
+    fn each(&mut self, mut f: impl FnMut(&mut dyn Observer<F>)) {
+        if let Some(m) = self.monitor.as_deref_mut() {
+            f(m);
+        }
+        for o in self.rest.iter_mut() {
+            f(&mut **o);
+        }
+    }
+}
+
+impl<F: Scalar> Observer<F> for Chain<'_, '_, '_, F> {
+    fn start(&mut self, net: &crate::network::Network<F>) {
+        self.each(|o| o.start(net));
+    }
+
+    fn after_step(&mut self, record: &crate::train::StepRecord, net: &crate::network::Network<F>) {
+        self.each(|o| o.after_step(record, net));
+    }
+
+    fn after_epoch(
+        &mut self,
+        record: &crate::train::EpochRecord,
+        net: &mut crate::network::Network<F>,
+    ) -> crate::train::Flow {
+        let mut flow = crate::train::Flow::Continue;
+        self.each(|o| {
+            if o.after_epoch(record, net) == crate::train::Flow::Stop {
+                flow = crate::train::Flow::Stop;
+            }
+        });
+        flow
+    }
+
+    fn take_optimizer_resets(&mut self) -> Vec<usize> {
+        let mut all = Vec::new();
+        self.each(|o| all.extend(o.take_optimizer_resets()));
+        all
+    }
+}
+
+/// Rows a [`Monitor`] probes at most.
+pub const PROBE_ROWS: usize = 512;
+
+/// Up to [`PROBE_ROWS`] rows spread evenly over `x`.
+fn probe_rows<F: Scalar>(x: ArrayView2<'_, F>) -> ndarray::Array2<F> {
+    let n = x.nrows();
+    let take = n.min(PROBE_ROWS);
+    let idx: Vec<usize> = (0..take).map(|k| k * n / take.max(1)).collect();
+    x.select(Axis(0), &idx)
 }

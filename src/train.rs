@@ -155,12 +155,23 @@ pub enum Flow {
 
 /// Watches training; called after every step and every epoch.
 pub trait Observer<F: Scalar> {
-    /// After each optimizer step, with the network's gradients of that step.
+    /// Once, before the first step, with the starting network.
+    fn start(&mut self, _net: &Network<F>) {}
+
+    /// After each optimizer step, with the network's gradients of that step (and its updated
+    /// parameters).
     fn after_step(&mut self, _record: &StepRecord, _net: &Network<F>) {}
 
     /// After each epoch, with its record; may change the network (e.g. revive units).
     fn after_epoch(&mut self, _record: &EpochRecord, _net: &mut Network<F>) -> Flow {
         Flow::Continue
+    }
+
+    /// Parameter entries whose optimizer state must be forgotten because `after_epoch`
+    /// re-initialized them; asked right after `after_epoch`. Step-based optimizers honour it;
+    /// L-BFGS, whose curvature pairs span all entries, does not.
+    fn take_optimizer_resets(&mut self) -> Vec<usize> {
+        Vec::new()
     }
 }
 
@@ -262,6 +273,7 @@ pub fn train<F: Scalar>(
     }
     let split = Split::new(x, y, validation, config)?;
     let run = Run::new(net, &split, config);
+    observers.iter_mut().for_each(|o| o.start(net));
     if config.optimizer.is_full_batch() {
         run.full_batch(net, observers)
     } else {
@@ -381,6 +393,8 @@ struct Run<'a, F: Scalar> {
     best: Option<Best<F>>,
     /// Score at the last improvement that counted for patience.
     patience_reference: f64,
+    /// Entries whose optimizer state observers asked to reset after the last epoch.
+    optimizer_resets: Vec<usize>,
     since_best: usize,
 }
 
@@ -399,6 +413,7 @@ impl<'a, F: Scalar> Run<'a, F> {
             rollbacks: Vec::new(),
             best: None,
             patience_reference: f64::INFINITY,
+            optimizer_resets: Vec::new(),
             since_best: 0,
         }
     }
@@ -460,6 +475,7 @@ impl<'a, F: Scalar> Run<'a, F> {
             if o.after_epoch(&record, net) == Flow::Stop {
                 flow = Flow::Stop;
             }
+            self.optimizer_resets.extend(o.take_optimizer_resets());
         }
         self.history.push(record);
         if flow == Flow::Stop {
@@ -609,7 +625,12 @@ impl<'a, F: Scalar> Run<'a, F> {
                 rates.observe(v);
             }
             let record = stats.record(epoch, lr, val_loss, started);
-            if let EpochEnd::Stop(reason) = self.end_epoch(net, record, observers) {
+            let end = self.end_epoch(net, record, observers);
+            if !self.optimizer_resets.is_empty() {
+                optimizer.reset_entries(&self.optimizer_resets);
+                self.optimizer_resets.clear();
+            }
+            if let EpochEnd::Stop(reason) = end {
                 return Ok(self.finish(net, reason));
             }
             epoch += 1;
@@ -679,6 +700,7 @@ impl<'a, F: Scalar> Run<'a, F> {
             observers,
             top: Array2::zeros((0, 0)),
             last: Instant::now(),
+            last_grad_norm: 0.0,
             stop: None,
             error: None,
         };
@@ -718,6 +740,8 @@ struct FullBatch<'r, 'a, 'n, 'o, 'p, F: Scalar> {
     observers: &'o mut [&'p mut dyn Observer<F>],
     top: Array2<F>,
     last: Instant,
+    /// Gradient norm of the last evaluation (L-BFGS evaluates the accepted point last).
+    last_grad_norm: f64,
     stop: Option<StopReason>,
     error: Option<TrainError>,
 }
@@ -753,6 +777,7 @@ impl<F: Scalar> LbfgsProblem for FullBatch<'_, '_, '_, '_, '_, F> {
         for (o, v) in grad.iter_mut().zip(net.grads()) {
             *o = v.as_f64();
         }
+        self.last_grad_norm = grad.iter().map(|g| g * g).sum::<f64>().sqrt();
         loss.as_f64() + objective.penalty.value(net.params(), &run.ranges)
     }
 
@@ -779,13 +804,24 @@ impl<F: Scalar> LbfgsProblem for FullBatch<'_, '_, '_, '_, '_, F> {
             train_loss: value - penalty,
             val_loss,
             lr: 0.0,
-            grad_norm_mean: f64::NAN,
-            grad_norm_max: f64::NAN,
+            grad_norm_mean: self.last_grad_norm,
+            grad_norm_max: self.last_grad_norm,
             clipped_steps: 0,
             steps: 1,
             seconds: self.last.elapsed().as_secs_f64(),
         };
         self.last = Instant::now();
+        // One L-BFGS iteration is one step: the last evaluation was at the accepted point, so
+        // the network holds its gradient.
+        let step = StepRecord {
+            epoch: iteration,
+            step: 0,
+            batch_loss: record.train_loss,
+            grad_norm: self.last_grad_norm,
+        };
+        self.observers
+            .iter_mut()
+            .for_each(|o| o.after_step(&step, net));
         if let EpochEnd::Stop(reason) = self.run.end_epoch(net, record, self.observers) {
             self.stop = Some(reason);
             return false;

@@ -1,7 +1,7 @@
 //! Adam (Kingma & Ba 2015) with bias correction; AMSGrad (Reddi et al. 2018) and decoupled
 //! weight decay (AdamW, Loshchilov & Hutter 2019) as options.
 
-use super::{fit_state, Optimizer};
+use super::{fit_state, zero_entries, Optimizer};
 use crate::scalar::Scalar;
 
 /// Adam: per-parameter steps from bias-corrected first and second moment estimates,
@@ -104,6 +104,10 @@ impl<F: Scalar> Optimizer<F> for Adam<F> {
         self.v.clear();
         self.v_max.clear();
         self.t = 0;
+    }
+
+    fn reset_entries(&mut self, entries: &[usize]) {
+        zero_entries(&mut [&mut self.m, &mut self.v, &mut self.v_max], entries);
     }
 
     fn set_decay_mask(&mut self, mask: &[bool]) {

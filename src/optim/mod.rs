@@ -33,6 +33,9 @@ pub trait Optimizer<F: Scalar>: Send {
     /// Forgets all state, as if no step had been taken.
     fn reset(&mut self);
 
+    /// Forgets the state of the given entries only (after they were re-initialized).
+    fn reset_entries(&mut self, entries: &[usize]);
+
     /// Tells the optimizer which entries take decoupled weight decay (AdamW); others ignore it.
     fn set_decay_mask(&mut self, _mask: &[bool]) {}
 }
@@ -160,6 +163,17 @@ impl FromStr for OptimizerChoice {
                 })
             }
         })
+    }
+}
+
+/// Zeroes `entries` of each state vector (vectors not yet sized are left alone).
+pub(crate) fn zero_entries<F: Scalar>(states: &mut [&mut Vec<F>], entries: &[usize]) {
+    for state in states.iter_mut() {
+        for &i in entries {
+            if let Some(v) = state.get_mut(i) {
+                *v = F::zero();
+            }
+        }
     }
 }
 

@@ -1,6 +1,6 @@
 //! RMSProp (Tieleman & Hinton 2012): divide each step by a running RMS of the gradient.
 
-use super::{fit_state, Optimizer};
+use super::{fit_state, zero_entries, Optimizer};
 use crate::scalar::Scalar;
 
 /// s ← ρs + (1 − ρ)g²; θ ← θ − ε·g/(√s + 1e-8).
@@ -50,5 +50,9 @@ impl<F: Scalar> Optimizer<F> for RmsProp<F> {
 
     fn reset(&mut self) {
         self.square_avg.clear();
+    }
+
+    fn reset_entries(&mut self, entries: &[usize]) {
+        zero_entries(&mut [&mut self.square_avg], entries);
     }
 }

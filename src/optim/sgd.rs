@@ -1,6 +1,6 @@
 //! Stochastic gradient descent, with heavy-ball (Polyak 1964) or Nesterov momentum.
 
-use super::{fit_state, Optimizer};
+use super::{fit_state, zero_entries, Optimizer};
 use crate::scalar::Scalar;
 
 /// SGD with optional momentum.
@@ -70,5 +70,9 @@ impl<F: Scalar> Optimizer<F> for Sgd<F> {
 
     fn reset(&mut self) {
         self.velocity.clear();
+    }
+
+    fn reset_entries(&mut self, entries: &[usize]) {
+        zero_entries(&mut [&mut self.velocity], entries);
     }
 }
