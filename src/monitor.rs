@@ -139,6 +139,8 @@ pub struct EpochDiagnostics {
     pub epoch: usize,
     /// One entry per hidden (activation) layer.
     pub layers: Vec<LayerStats>,
+    /// One entry per parameter tensor.
+    pub tensors: Vec<TensorHealth>,
     /// Largest step gradient norm over the epoch's first.
     pub grad_jump: f64,
 }
@@ -151,15 +153,28 @@ struct Hidden {
     units: usize,
     /// The affine layer feeding it: weight and bias ranges and its fan-in.
     incoming: Option<(Range<usize>, Range<usize>, usize)>,
+    /// Index (in the monitor's tensor list) of the incoming weight.
+    incoming_tensor: Option<usize>,
     /// The weight range of the next affine layer (rows = this layer's units).
     outgoing: Option<(Range<usize>, usize)>,
 }
 
-/// Running sums over an epoch's steps for one hidden layer.
+/// Running sums over an epoch's steps for one parameter tensor.
 #[derive(Clone, Copy, Debug, Default)]
 struct StepSums {
     grad_norm: f64,
     update_ratio: f64,
+}
+
+/// Gradient and update statistics of one parameter tensor over one epoch.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct TensorHealth {
+    /// e.g. "layer 0 (affine) weight".
+    pub tensor: String,
+    /// L2 norm of the tensor's gradient, averaged over the epoch's steps.
+    pub grad_norm: f64,
+    /// ‖Δθ‖/‖θ‖ per step, averaged over the epoch's steps (0 while θ = 0).
+    pub update_ratio: f64,
 }
 
 /// A callback that sees each warning as it is raised.
@@ -171,6 +186,8 @@ pub struct Monitor<F: Scalar> {
     config: MonitorConfig,
     probe: Array2<F>,
     hidden: Vec<Hidden>,
+    /// Label and range of every parameter tensor.
+    tensors: Vec<(String, Range<usize>)>,
     previous: Vec<F>,
     sums: Vec<StepSums>,
     steps: usize,
@@ -205,6 +222,7 @@ impl<F: Scalar> Monitor<F> {
             config,
             probe: probe.to_owned(),
             hidden: Vec::new(),
+            tensors: Vec::new(),
             previous: Vec::new(),
             sums: Vec::new(),
             steps: 0,
@@ -267,15 +285,25 @@ impl<F: Scalar> Monitor<F> {
                 let cols = w.len() / width;
                 Some((w, cols))
             });
+            let incoming_tensor = before.and_then(|k| {
+                tensors
+                    .iter()
+                    .position(|t| t.layer == k && t.name == "weight")
+            });
             self.hidden.push(Hidden {
                 layer: i,
                 activation,
                 units: width,
                 incoming,
+                incoming_tensor,
                 outgoing,
             });
         }
-        self.sums = vec![StepSums::default(); self.hidden.len()];
+        self.tensors = tensors
+            .iter()
+            .map(|t| (t.label(), t.range.clone()))
+            .collect();
+        self.sums = vec![StepSums::default(); self.tensors.len()];
     }
 
     fn warn(&mut self, warning: Warning) {
@@ -290,11 +318,10 @@ impl<F: Scalar> Monitor<F> {
         if net.forward(self.probe.view(), Pass::Infer).is_err() {
             return Vec::new();
         }
-        let steps = self.steps.max(1) as f64;
+        let health = self.tensor_health();
         self.hidden
             .iter()
-            .zip(&self.sums)
-            .map(|(h, sums)| {
+            .map(|h| {
                 let out = net.layer_output(h.layer).expect("mapped layer");
                 let input = net.layer_input(h.layer).expect("mapped layer");
                 let mut stats = output_stats(out, self.config.dormant_tau);
@@ -308,9 +335,25 @@ impl<F: Scalar> Monitor<F> {
                     }
                     _ => None,
                 };
-                stats.grad_norm = sums.grad_norm / steps;
-                stats.update_ratio = sums.update_ratio / steps;
+                if let Some(t) = h.incoming_tensor {
+                    stats.grad_norm = health[t].grad_norm;
+                    stats.update_ratio = health[t].update_ratio;
+                }
                 stats
+            })
+            .collect()
+    }
+
+    /// The epoch's per-tensor averages so far.
+    fn tensor_health(&self) -> Vec<TensorHealth> {
+        let steps = self.steps.max(1) as f64;
+        self.tensors
+            .iter()
+            .zip(&self.sums)
+            .map(|((label, _), sums)| TensorHealth {
+                tensor: label.clone(),
+                grad_norm: sums.grad_norm / steps,
+                update_ratio: sums.update_ratio / steps,
             })
             .collect()
     }
@@ -457,20 +500,15 @@ impl<F: Scalar> Observer<F> for Monitor<F> {
     }
 
     fn after_step(&mut self, record: &StepRecord, net: &Network<F>) {
-        if self.hidden.is_empty() && self.sums.is_empty() {
+        if self.tensors.is_empty() || self.previous.len() != net.param_count() {
             self.map_layers(net);
-        }
-        if self.previous.len() != net.param_count() {
             self.previous = net.params().to_vec();
         }
         let (params, grads) = (net.params(), net.grads());
-        for (h, sums) in self.hidden.iter().zip(self.sums.iter_mut()) {
-            let Some((w, _, _)) = &h.incoming else {
-                continue;
-            };
-            sums.grad_norm += norm(&grads[w.clone()]);
-            let before = &self.previous[w.clone()];
-            let delta = params[w.clone()]
+        for ((_, range), sums) in self.tensors.iter().zip(self.sums.iter_mut()) {
+            sums.grad_norm += norm(&grads[range.clone()]);
+            let before = &self.previous[range.clone()];
+            let delta = params[range.clone()]
                 .iter()
                 .zip(before)
                 .map(|(a, b)| (a.as_f64() - b.as_f64()).powi(2))
@@ -490,10 +528,11 @@ impl<F: Scalar> Observer<F> for Monitor<F> {
     }
 
     fn after_epoch(&mut self, record: &EpochRecord, net: &mut Network<F>) -> Flow {
-        if self.hidden.is_empty() {
+        if self.tensors.is_empty() {
             self.map_layers(net);
         }
         let mut layers = self.probe_stats(net);
+        let tensors = self.tensor_health();
         let jump = self.max_norm;
         self.check_thresholds(record.epoch, &layers, jump);
         if let Some(revival) = self.config.revival {
@@ -507,6 +546,7 @@ impl<F: Scalar> Observer<F> for Monitor<F> {
         self.epochs.push(EpochDiagnostics {
             epoch: record.epoch,
             layers,
+            tensors,
             grad_jump: jump,
         });
         self.sums.iter_mut().for_each(|s| *s = StepSums::default());

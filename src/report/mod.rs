@@ -10,7 +10,7 @@ mod svg;
 pub use svg::{plot_run, PlotOptions};
 
 use crate::layer::LayerSpec;
-use crate::monitor::{LayerStats, Monitor, Warning};
+use crate::monitor::{LayerStats, Monitor, TensorHealth, Warning};
 use crate::scalar::Scalar;
 use crate::train::{Rollback, StopReason, TrainConfig, TrainSummary};
 use serde::{Deserialize, Serialize};
@@ -49,6 +49,8 @@ pub struct EpochEntry {
     pub grad_norm: f64,
     /// One entry per hidden layer (empty without a monitor).
     pub layers: Vec<LayerStats>,
+    /// Gradient norm and update ratio of every parameter tensor (empty without a monitor).
+    pub tensors: Vec<TensorHealth>,
 }
 
 /// How the run ended.
@@ -107,16 +109,17 @@ impl RunReport {
             .history
             .iter()
             .enumerate()
-            .map(|(i, e)| EpochEntry {
-                epoch: e.epoch,
-                train_loss: e.train_loss,
-                val_loss: e.val_loss,
-                lr: e.lr,
-                grad_norm: e.grad_norm_mean,
-                layers: monitor
-                    .and_then(|m| m.epochs.get(i))
-                    .map(|d| d.layers.clone())
-                    .unwrap_or_default(),
+            .map(|(i, e)| {
+                let diagnostics = monitor.and_then(|m| m.epochs.get(i));
+                EpochEntry {
+                    epoch: e.epoch,
+                    train_loss: e.train_loss,
+                    val_loss: e.val_loss,
+                    lr: e.lr,
+                    grad_norm: e.grad_norm_mean,
+                    layers: diagnostics.map(|d| d.layers.clone()).unwrap_or_default(),
+                    tensors: diagnostics.map(|d| d.tensors.clone()).unwrap_or_default(),
+                }
             })
             .collect();
         RunReport {
