@@ -140,6 +140,21 @@ impl Recipe {
         config
     }
 
+    /// The (training, validation) rows this recipe uses for a table of `rows` rows: a seeded
+    /// split, the same on every call. Encoders fitted outside the recipe must use these
+    /// training rows only.
+    pub fn split(&self, rows: usize) -> Result<(Vec<usize>, Vec<usize>), TrainError> {
+        let config = self.config_for(rows);
+        let n_val = (rows as f64 * config.val_frac).round() as usize;
+        if n_val >= rows {
+            return Err(TrainError::Data(format!(
+                "a validation fraction of {} leaves no training rows out of {rows}",
+                config.val_frac
+            )));
+        }
+        Ok(crate::train::holdout_indices(rows, n_val, config.seed))
+    }
+
     /// The same recipe with one training configuration for every table size.
     pub fn with_config(mut self, config: TrainConfig) -> Self {
         self.train = config;
@@ -218,15 +233,7 @@ impl Recipe {
         }
         let config = self.config_for(x.nrows());
         // Hold out the validation rows here so the scaling is fitted on training rows only.
-        let n_val = (x.nrows() as f64 * config.val_frac).round() as usize;
-        if n_val >= x.nrows() {
-            return Err(TrainError::Data(format!(
-                "a validation fraction of {} leaves no training rows out of {}",
-                config.val_frac,
-                x.nrows()
-            )));
-        }
-        let (train_idx, val_idx) = crate::train::holdout_indices(x.nrows(), n_val, config.seed);
+        let (train_idx, val_idx) = self.split(x.nrows())?;
         let rows = |m: ArrayView2<'_, F>, idx: &[usize]| m.select(Axis(0), idx);
         let (xt, yt) = (rows(x, &train_idx), rows(y, &train_idx));
         let inputs = if self.scale_inputs {

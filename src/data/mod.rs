@@ -1,0 +1,277 @@
+//! Tables of named columns read from CSV, and their encoding for a network.
+
+mod encoder;
+mod split;
+
+pub use encoder::{Encoder, EncoderSpec, FeatureEncoding, Impute, TargetEncoding};
+pub use split::{holdout, kfold, stratified_kfold};
+
+use serde::{Deserialize, Serialize};
+use std::io::Read;
+use std::path::Path;
+use thiserror::Error;
+
+/// A problem with input data, naming where it is.
+#[derive(Debug, Clone, PartialEq, Error)]
+pub enum DataError {
+    /// The file could not be opened or read.
+    #[error("{source_name}: {message}")]
+    Io {
+        /// File name (or "stdin").
+        source_name: String,
+        /// What went wrong.
+        message: String,
+    },
+    /// A cell, row or column is not usable.
+    #[error("{source_name}: line {line}, column '{column}': {message}")]
+    Cell {
+        /// File name.
+        source_name: String,
+        /// 1-based line in the file (the header is line 1).
+        line: u64,
+        /// Column name.
+        column: String,
+        /// What is wrong.
+        message: String,
+    },
+    /// A problem with the table as a whole (missing column, no rows, ragged rows).
+    #[error("{source_name}: {message}")]
+    Table {
+        /// File name.
+        source_name: String,
+        /// What is wrong.
+        message: String,
+    },
+}
+
+/// The values of one column: numbers (NaN marks a missing cell) or text (None: missing).
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub enum ColumnData {
+    /// Numeric cells.
+    Number(Vec<f64>),
+    /// Text cells.
+    Text(Vec<Option<String>>),
+}
+
+/// One named column.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct Column {
+    /// Header name.
+    pub name: String,
+    /// Cells.
+    pub data: ColumnData,
+}
+
+impl Column {
+    /// True if cell `row` is missing.
+    pub fn is_missing(&self, row: usize) -> bool {
+        match &self.data {
+            ColumnData::Number(v) => v[row].is_nan(),
+            ColumnData::Text(v) => v[row].is_none(),
+        }
+    }
+}
+
+/// How to read a CSV file.
+#[derive(Clone, Debug, PartialEq, Default)]
+pub struct ReadOptions {
+    /// Columns to read as text even if their cells look like numbers (e.g. postcodes).
+    pub text_columns: Vec<String>,
+    /// Treat "NaN", "inf" and friends as missing cells instead of refusing them.
+    pub allow_non_finite: bool,
+}
+
+/// A table read from CSV: named, typed columns and the file line of every row.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Table {
+    /// Where it came from (file name or "stdin"), for error messages.
+    pub source: String,
+    /// Columns in file order.
+    pub columns: Vec<Column>,
+    /// File line of each row (1-based; the header is line 1).
+    pub lines: Vec<u64>,
+}
+
+impl Table {
+    /// Reads a CSV file with a header row.
+    pub fn read_path(path: &Path, options: &ReadOptions) -> Result<Table, DataError> {
+        let name = path.display().to_string();
+        let file = std::fs::File::open(path).map_err(|e| DataError::Io {
+            source_name: name.clone(),
+            message: format!("cannot open: {e}"),
+        })?;
+        Table::read(std::io::BufReader::new(file), &name, options)
+    }
+
+    /// Reads CSV with a header row from any reader, row by row: the raw text is never held
+    /// whole, only the parsed cells. A column's type comes from its first non-empty cell: if it
+    /// is a number the column is numeric, and any later non-number in it is an error.
+    pub fn read(
+        reader: impl Read,
+        source: &str,
+        options: &ReadOptions,
+    ) -> Result<Table, DataError> {
+        let mut csv = csv::ReaderBuilder::new()
+            .has_headers(true)
+            .trim(csv::Trim::All)
+            .flexible(false)
+            .from_reader(reader);
+        let table_error = |message: String| DataError::Table {
+            source_name: source.to_string(),
+            message,
+        };
+        let headers = csv
+            .headers()
+            .map_err(|e| table_error(format!("cannot read the header row: {e}")))?
+            .clone();
+        if headers.is_empty() || headers.iter().all(|h| h.is_empty()) {
+            return Err(table_error("the file is empty: no header row".to_string()));
+        }
+        for (i, h) in headers.iter().enumerate() {
+            if h.is_empty() {
+                return Err(table_error(format!("column {} has an empty name", i + 1)));
+            }
+            if headers.iter().take(i).any(|other| other == h) {
+                return Err(table_error(format!("column name '{h}' appears twice")));
+            }
+        }
+        let mut kinds: Vec<Option<bool>> = headers
+            .iter()
+            .map(|h| options.text_columns.iter().any(|t| t == h).then_some(false))
+            .collect();
+        let mut numbers: Vec<Vec<f64>> = vec![Vec::new(); headers.len()];
+        let mut texts: Vec<Vec<Option<String>>> = vec![Vec::new(); headers.len()];
+        let mut lines = Vec::new();
+        let mut record = csv::StringRecord::new();
+        loop {
+            match csv.read_record(&mut record) {
+                Ok(false) => break,
+                Ok(true) => {}
+                Err(e) => {
+                    let line = e.position().map_or(0, |p| p.line());
+                    let message = match e.kind() {
+                        csv::ErrorKind::UnequalLengths {
+                            expected_len, len, ..
+                        } => {
+                            format!("line {line}: {len} fields where the header has {expected_len}")
+                        }
+                        _ => format!("line {line}: {e}"),
+                    };
+                    return Err(table_error(message));
+                }
+            }
+            let line = record.position().map_or(0, |p| p.line());
+            let row = lines.len();
+            lines.push(line);
+            for (c, cell) in record.iter().enumerate() {
+                let cell_error = |message: String| DataError::Cell {
+                    source_name: source.to_string(),
+                    line,
+                    column: headers[c].to_string(),
+                    message,
+                };
+                if cell.is_empty() {
+                    match kinds[c] {
+                        Some(false) => texts[c].push(None),
+                        _ => numbers[c].push(f64::NAN),
+                    }
+                    continue;
+                }
+                let parsed = parse_number(cell);
+                let numeric = match kinds[c] {
+                    Some(k) => k,
+                    None => {
+                        let k = parsed.is_some();
+                        kinds[c] = Some(k);
+                        if !k {
+                            // Earlier cells were all empty: carry them over as missing text.
+                            texts[c] = vec![None; row];
+                            numbers[c].clear();
+                        }
+                        k
+                    }
+                };
+                if !numeric {
+                    texts[c].push(Some(cell.to_string()));
+                    continue;
+                }
+                match parsed {
+                    Some(v) if v.is_finite() => numbers[c].push(v),
+                    Some(_) if options.allow_non_finite => numbers[c].push(f64::NAN),
+                    Some(_) => {
+                        return Err(cell_error(format!(
+                            "'{cell}' is not a finite number (allow non-finite values to read \
+                             them as missing)"
+                        )))
+                    }
+                    None => {
+                        return Err(cell_error(format!(
+                            "'{cell}' is not a number, but the column is numeric (its first \
+                             value was a number); mark the column as text if it is a category"
+                        )))
+                    }
+                }
+            }
+        }
+        if lines.is_empty() {
+            return Err(table_error("no data rows after the header".to_string()));
+        }
+        let columns = headers
+            .iter()
+            .enumerate()
+            .map(|(c, name)| Column {
+                name: name.to_string(),
+                data: if kinds[c] == Some(false) {
+                    ColumnData::Text(std::mem::take(&mut texts[c]))
+                } else {
+                    ColumnData::Number(std::mem::take(&mut numbers[c]))
+                },
+            })
+            .collect();
+        Ok(Table {
+            source: source.to_string(),
+            columns,
+            lines,
+        })
+    }
+
+    /// Number of data rows.
+    pub fn rows(&self) -> usize {
+        self.lines.len()
+    }
+
+    /// The column called `name`, or an error listing the columns there are.
+    pub fn column(&self, name: &str) -> Result<&Column, DataError> {
+        self.columns
+            .iter()
+            .find(|c| c.name == name)
+            .ok_or_else(|| DataError::Table {
+                source_name: self.source.clone(),
+                message: format!(
+                    "no column named '{name}'; the columns are: {}",
+                    self.columns
+                        .iter()
+                        .map(|c| c.name.as_str())
+                        .collect::<Vec<_>>()
+                        .join(", ")
+                ),
+            })
+    }
+
+    /// A cell error at `row` of `column`.
+    pub fn cell_error(&self, row: usize, column: &str, message: impl Into<String>) -> DataError {
+        DataError::Cell {
+            source_name: self.source.clone(),
+            line: self.lines.get(row).copied().unwrap_or(0),
+            column: column.to_string(),
+            message: message.into(),
+        }
+    }
+}
+
+/// Strict, locale-independent number parsing: Rust's grammar ("1e-3", "-0.5", "+2", ".5"), no
+/// thousands separators or decimal commas. Non-finite spellings ("NaN", "inf") parse to a
+/// non-finite value, which the caller decides about.
+pub fn parse_number(text: &str) -> Option<f64> {
+    text.parse::<f64>().ok()
+}

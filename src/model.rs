@@ -1,0 +1,369 @@
+//! A trained model with its preprocessing, trained from a table, saved as one versioned file.
+//!
+//! The file is JSON: `{"format": "relume-model", "version": 1, ...}` holding the encoder, the
+//! input and target scaling, the layers, the parameters (as f64, exact for f32 weights), the
+//! input ranges seen in training (inside the encoder) and a training summary. Saving is atomic.
+//! Loading checks everything and bounds every size before anything is allocated.
+
+use crate::data::{DataError, Encoder, EncoderSpec, FeatureEncoding, Table};
+use crate::layer::LayerSpec;
+use crate::metrics::Metrics;
+use crate::monitor::MonitorConfig;
+use crate::network::Network;
+use crate::recipe::Recipe;
+use crate::report::RunReport;
+use crate::scale::Standardizer;
+use crate::train::{StopReason, TrainError};
+use serde::{Deserialize, Serialize};
+use std::path::Path;
+use thiserror::Error;
+
+/// Name in the `format` field of every model file.
+pub const MODEL_FORMAT: &str = "relume-model";
+/// Version of the model file layout this library writes and reads.
+pub const MODEL_VERSION: u32 = 1;
+/// Largest model file read, in bytes.
+pub const MAX_MODEL_BYTES: u64 = 1 << 30;
+/// Largest width of any layer in a model file.
+pub const MAX_WIDTH: usize = 1 << 16;
+/// Largest number of parameters in a model file.
+pub const MAX_PARAMS: usize = 1 << 27;
+/// Most layers in a model file.
+pub const MAX_LAYERS: usize = 1024;
+
+/// How training went, as kept in the model file.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct ModelSummary {
+    /// Training rows.
+    pub train_rows: usize,
+    /// Validation rows.
+    pub val_rows: usize,
+    /// Epochs run.
+    pub epochs_run: usize,
+    /// Epoch whose weights were kept.
+    pub best_epoch: usize,
+    /// Why training stopped.
+    pub stop: StopReason,
+    /// Validation metrics in target units, if there was a validation split.
+    pub validation: Option<Metrics>,
+    /// Dead-unit fraction of each hidden layer at the end (from the monitor's probe).
+    pub dead_fractions: Vec<f64>,
+}
+
+/// A trained model: encoder, scaling, network and summary.
+#[derive(Debug, Clone)]
+pub struct Model {
+    /// Column encoding (with the training ranges of numeric inputs).
+    pub encoder: Encoder,
+    /// Scaling of the encoded inputs.
+    pub inputs: Standardizer,
+    /// Scaling of the (possibly log) target.
+    pub target: Standardizer,
+    /// The network, on scaled values.
+    pub network: Network<f32>,
+    /// How training went.
+    pub summary: ModelSummary,
+}
+
+/// Why a model file could not be written or read.
+#[derive(Debug, Clone, PartialEq, Error)]
+#[error("model file {path}: {message}")]
+pub struct ModelError {
+    /// The file.
+    pub path: String,
+    /// What is wrong.
+    pub message: String,
+}
+
+/// Why training from a table failed.
+#[derive(Debug, Clone, PartialEq, Error)]
+pub enum FitError {
+    /// The table cannot be encoded.
+    #[error(transparent)]
+    Data(#[from] DataError),
+    /// Training failed.
+    #[error(transparent)]
+    Train(#[from] TrainError),
+}
+
+/// The on-disk layout.
+#[derive(Serialize, Deserialize)]
+struct ModelFile {
+    format: String,
+    version: u32,
+    library: String,
+    encoder: Encoder,
+    input_scaling: Standardizer,
+    target_scaling: Standardizer,
+    input_width: usize,
+    layers: Vec<LayerSpec>,
+    parameters: Vec<f64>,
+    summary: ModelSummary,
+}
+
+impl Model {
+    /// Trains on `table` with `recipe`: the encoder is fitted on the recipe's training rows
+    /// only, the validation metrics are computed in target units, and the run is watched by a
+    /// monitor whose report is returned.
+    pub fn fit(
+        table: &Table,
+        spec: &EncoderSpec,
+        recipe: &Recipe,
+        monitor: MonitorConfig,
+    ) -> Result<(Model, RunReport), FitError> {
+        let (train_rows, val_rows) = recipe.split(table.rows())?;
+        let encoder = Encoder::fit(table, spec, &train_rows)?;
+        let x = encoder.encode_inputs(table, None)?.mapv(|v| v as f32);
+        let y = encoder.encode_target(table, None)?.mapv(|v| v as f32);
+        let (mut trained, report) = recipe.fit_reported(x.view(), y.view(), monitor, &mut [])?;
+        let validation = (!val_rows.is_empty()).then(|| {
+            let xv = x.select(ndarray::Axis(0), &val_rows);
+            let pred = trained.predict(xv.view()).expect("encoded widths match");
+            let predictions: Vec<f64> = pred
+                .iter()
+                .map(|&p| encoder.decode_target(p as f64))
+                .collect();
+            let targets: Vec<f64> = val_rows
+                .iter()
+                .map(|&r| encoder.decode_target(y[(r, 0)] as f64))
+                .collect();
+            Metrics::compute(&predictions, &targets)
+        });
+        let dead_fractions = report
+            .epochs
+            .last()
+            .map(|e| e.layers.iter().map(|l| l.dead_fraction).collect())
+            .unwrap_or_default();
+        let s = &trained.summary;
+        let summary = ModelSummary {
+            train_rows: s.rows.0,
+            val_rows: s.rows.1,
+            epochs_run: s.history.len(),
+            best_epoch: s.best_epoch,
+            stop: s.stop,
+            validation,
+            dead_fractions,
+        };
+        Ok((
+            Model {
+                encoder,
+                inputs: trained.inputs,
+                target: trained.target,
+                network: trained.network,
+                summary,
+            },
+            report,
+        ))
+    }
+
+    /// The model file's JSON text.
+    pub fn to_json(&self) -> String {
+        let file = ModelFile {
+            format: MODEL_FORMAT.to_string(),
+            version: MODEL_VERSION,
+            library: format!("relume {}", env!("CARGO_PKG_VERSION")),
+            encoder: self.encoder.clone(),
+            input_scaling: self.inputs.clone(),
+            target_scaling: self.target.clone(),
+            input_width: self.network.input_width(),
+            layers: self.network.specs(),
+            parameters: self.network.params().iter().map(|&p| p as f64).collect(),
+            summary: self.summary.clone(),
+        };
+        serde_json::to_string(&file).expect("a model always serializes")
+    }
+
+    /// Saves atomically: a crash mid-save leaves the previous file in place.
+    pub fn save(&self, path: &Path) -> Result<(), ModelError> {
+        crate::atomic::write_atomic(path, self.to_json().as_bytes()).map_err(|e| ModelError {
+            path: path.display().to_string(),
+            message: format!("cannot save: {e}"),
+        })
+    }
+
+    /// Loads and validates a model file.
+    pub fn load(path: &Path) -> Result<Model, ModelError> {
+        let name = path.display().to_string();
+        let fail = |message: String| ModelError {
+            path: name.clone(),
+            message,
+        };
+        let size = std::fs::metadata(path)
+            .map_err(|e| fail(format!("cannot open: {e}")))?
+            .len();
+        if size > MAX_MODEL_BYTES {
+            return Err(fail(format!(
+                "{size} bytes is larger than the {MAX_MODEL_BYTES} a model file may have"
+            )));
+        }
+        let text = std::fs::read_to_string(path).map_err(|e| fail(format!("cannot read: {e}")))?;
+        Model::from_json(&text).map_err(fail)
+    }
+
+    /// Parses and validates a model file's text.
+    pub fn from_json(text: &str) -> Result<Model, String> {
+        // Check the format and version first, so an old or foreign file gets a clear message
+        // rather than a complaint about some field.
+        #[derive(Deserialize)]
+        struct Header {
+            format: Option<String>,
+            version: Option<u32>,
+        }
+        let header: Header = serde_json::from_str(text).map_err(|e| {
+            format!(
+                "not a model file: {e} (line {}, column {})",
+                e.line(),
+                e.column()
+            )
+        })?;
+        match header.format.as_deref() {
+            Some(MODEL_FORMAT) => {}
+            Some(other) => return Err(format!("format is '{other}', not '{MODEL_FORMAT}'")),
+            None => return Err(format!("no 'format' field: not a {MODEL_FORMAT} file")),
+        }
+        match header.version {
+            Some(v) if v == MODEL_VERSION => {}
+            Some(v) => {
+                return Err(format!(
+                    "version {v} is not supported (this relume reads version {MODEL_VERSION})"
+                ))
+            }
+            None => return Err("no 'version' field".to_string()),
+        }
+        let file: ModelFile = serde_json::from_str(text).map_err(|e| {
+            format!(
+                "damaged model file: {e} (line {}, column {})",
+                e.line(),
+                e.column()
+            )
+        })?;
+        validate(&file)?;
+        let mut network = Network::<f32>::from_specs(file.input_width, &file.layers)
+            .map_err(|e| format!("invalid layers: {e}"))?;
+        for (p, v) in network.params_mut().iter_mut().zip(&file.parameters) {
+            *p = *v as f32;
+        }
+        Ok(Model {
+            encoder: file.encoder,
+            inputs: file.input_scaling,
+            target: file.target_scaling,
+            network,
+            summary: file.summary,
+        })
+    }
+}
+
+/// Checks sizes (before anything is built), shapes and values of a parsed model file.
+fn validate(file: &ModelFile) -> Result<(), String> {
+    if file.layers.is_empty() || file.layers.len() > MAX_LAYERS {
+        return Err(format!(
+            "{} layers: must be 1 to {MAX_LAYERS}",
+            file.layers.len()
+        ));
+    }
+    let check_width = |what: &str, w: usize| {
+        if w == 0 || w > MAX_WIDTH {
+            Err(format!("{what} is {w}: must be 1 to {MAX_WIDTH}"))
+        } else {
+            Ok(())
+        }
+    };
+    check_width("input width", file.input_width)?;
+    let mut width = file.input_width;
+    let mut count: usize = 0;
+    for (i, layer) in file.layers.iter().enumerate() {
+        let (takes, gives, params) = match *layer {
+            LayerSpec::Affine {
+                inputs, outputs, ..
+            } => {
+                check_width(&format!("layer {i} inputs"), inputs)?;
+                check_width(&format!("layer {i} outputs"), outputs)?;
+                (inputs, outputs, inputs * outputs + outputs)
+            }
+            LayerSpec::Activation {
+                width: w,
+                activation,
+            } => {
+                check_width(&format!("layer {i} width"), w)?;
+                activation
+                    .validate()
+                    .map_err(|e| format!("layer {i}: {e}"))?;
+                let slopes = match activation {
+                    crate::Activation::Prelu { shared: true, .. } => 1,
+                    crate::Activation::Prelu { shared: false, .. } => w,
+                    _ => 0,
+                };
+                (w, w, slopes)
+            }
+            LayerSpec::Dropout { width: w, .. } => {
+                check_width(&format!("layer {i} width"), w)?;
+                (w, w, 0)
+            }
+        };
+        if takes != width {
+            return Err(format!(
+                "layer {i} takes {takes} inputs but receives {width}"
+            ));
+        }
+        width = gives;
+        count = count
+            .checked_add(params)
+            .filter(|&c| c <= MAX_PARAMS)
+            .ok_or_else(|| format!("more than {MAX_PARAMS} parameters"))?;
+    }
+    if width != 1 {
+        return Err(format!(
+            "the network gives {width} outputs; a model has one target"
+        ));
+    }
+    if file.parameters.len() != count {
+        return Err(format!(
+            "{} parameters stored, but the layers need {count}",
+            file.parameters.len()
+        ));
+    }
+    if let Some(i) = file.parameters.iter().position(|p| !p.is_finite()) {
+        return Err(format!("parameter {i} is not finite"));
+    }
+    if file.encoder.width() != file.input_width || file.input_scaling.width() != file.input_width {
+        return Err(format!(
+            "the encoder gives {} inputs and the scaling covers {}, but the network takes {}",
+            file.encoder.width(),
+            file.input_scaling.width(),
+            file.input_width
+        ));
+    }
+    if file.target_scaling.width() != 1 {
+        return Err("the target scaling must cover one column".to_string());
+    }
+    for s in [&file.input_scaling, &file.target_scaling] {
+        if s.mean.len() != s.sd.len()
+            || s.mean.iter().any(|m| !m.is_finite())
+            || s.sd.iter().any(|d| !(d.is_finite() && *d > 0.0))
+        {
+            return Err("scaling means must be finite and deviations finite and > 0".to_string());
+        }
+    }
+    for f in &file.encoder.features {
+        match f {
+            FeatureEncoding::Number {
+                name,
+                min,
+                max,
+                fill,
+            } => {
+                if !(min.is_finite() && max.is_finite() && min <= max)
+                    || fill.is_some_and(|v| !v.is_finite())
+                {
+                    return Err(format!("feature '{name}': invalid range or fill value"));
+                }
+            }
+            FeatureEncoding::Category { name, levels, .. } => {
+                if levels.is_empty() {
+                    return Err(format!("feature '{name}' has no categories"));
+                }
+            }
+        }
+    }
+    Ok(())
+}
