@@ -150,7 +150,7 @@ fn folds_cover_every_row_once() {
         kfold(23, 5, 1),
         stratified_kfold(&(0..23).map(|i| i as f64).collect::<Vec<_>>(), 5, 1),
     ] {
-        let mut seen = vec![0; 23];
+        let mut seen = [0; 23];
         for (train, test) in &folds {
             assert_eq!(train.len() + test.len(), 23);
             test.iter().for_each(|&r| seen[r] += 1);
