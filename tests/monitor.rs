@@ -18,6 +18,27 @@ fn task(rows: usize, inputs: usize, seed: u64) -> (Array2<f64>, Array2<f64>) {
     (x, y)
 }
 
+/// Trains `net` for `config` with a default monitor probing `x`; returns the monitor.
+fn watched(
+    net: &mut Network<f64>,
+    x: &Array2<f64>,
+    y: &Array2<f64>,
+    config: MonitorConfig,
+    train_config: &TrainConfig,
+) -> (Monitor<f64>, relume::TrainSummary) {
+    let mut monitor = Monitor::new(x.view(), config);
+    let summary = train(
+        net,
+        x.view(),
+        y.view(),
+        None,
+        train_config,
+        &mut [&mut monitor],
+    )
+    .unwrap();
+    (monitor, summary)
+}
+
 fn one_epoch(lr: f64) -> TrainConfig {
     TrainConfig {
         epochs: 1,
@@ -50,16 +71,7 @@ fn a_layer_with_bias_minus_100_is_all_dead() {
     let mut net = Network::<f64>::from_specs(3, &specs).unwrap();
     net.initialize(1);
     let (x, y) = task(200, 3, 1);
-    let mut monitor = Monitor::new(x.view(), MonitorConfig::default());
-    train(
-        &mut net,
-        x.view(),
-        y.view(),
-        None,
-        &one_epoch(1e-3),
-        &mut [&mut monitor],
-    )
-    .unwrap();
+    let (monitor, _) = watched(&mut net, &x, &y, MonitorConfig::default(), &one_epoch(1e-3));
     let stats = &monitor.epochs[0].layers[0];
     assert_eq!(stats.dead_fraction, 1.0);
     assert_eq!(stats.zero_fraction, 1.0);
@@ -82,16 +94,7 @@ fn a_healthy_he_layer_has_few_dead_units_after_one_epoch() {
     let mut net = NetworkPlan::new(10, &[64, 64], Activation::Relu)
         .build::<f64>(3)
         .unwrap();
-    let mut monitor = Monitor::new(x.view(), MonitorConfig::default());
-    train(
-        &mut net,
-        x.view(),
-        y.view(),
-        None,
-        &one_epoch(1e-3),
-        &mut [&mut monitor],
-    )
-    .unwrap();
+    let (monitor, _) = watched(&mut net, &x, &y, MonitorConfig::default(), &one_epoch(1e-3));
     for s in &monitor.epochs[0].layers {
         println!(
             "layer {}: dead {:.3}, zero {:.3}",
@@ -147,22 +150,13 @@ fn revival_brings_back_dead_units_and_training_goes_on() {
         }),
         ..MonitorConfig::default()
     };
-    let mut monitor = Monitor::new(x.view(), config);
     let train_config = TrainConfig {
         epochs: 6,
         lr: 3e-3,
         val_frac: 0.0,
         ..TrainConfig::default()
     };
-    let summary = train(
-        &mut net,
-        x.view(),
-        y.view(),
-        None,
-        &train_config,
-        &mut [&mut monitor],
-    )
-    .unwrap();
+    let (monitor, summary) = watched(&mut net, &x, &y, config, &train_config);
     let first = &monitor.epochs[0].layers[0];
     let second = &monitor.epochs[1].layers[0];
     println!(
@@ -219,16 +213,7 @@ fn gradient_norm_and_update_ratio_match_a_hand_computation() {
         val_frac: 0.0,
         ..TrainConfig::default()
     };
-    let mut monitor = Monitor::new(x.view(), MonitorConfig::default());
-    train(
-        &mut net,
-        x.view(),
-        y.view(),
-        None,
-        &config,
-        &mut [&mut monitor],
-    )
-    .unwrap();
+    let (monitor, _) = watched(&mut net, &x, &y, MonitorConfig::default(), &config);
     let stats = &monitor.epochs[0].layers[0];
     assert!(
         (stats.grad_norm - 12.0).abs() < 1e-12,
