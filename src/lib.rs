@@ -63,7 +63,7 @@ pub use objective::Objective;
 pub use optim::{Adam, Optimizer, OptimizerChoice};
 pub use penalty::Penalty;
 pub use predict::Predictor;
-pub use recipe::{Recipe, Trained};
+pub use recipe::{Overrides, Recipe, Trained};
 pub use report::RunReport;
 pub use scalar::Scalar;
 pub use scale::Standardizer;

@@ -13,7 +13,7 @@ use crate::network::Network;
 use crate::recipe::Recipe;
 use crate::report::RunReport;
 use crate::scale::Standardizer;
-use crate::train::{StopReason, TrainError};
+use crate::train::{Observer, StopReason, TrainError};
 use serde::{Deserialize, Serialize};
 use std::path::Path;
 use thiserror::Error;
@@ -111,11 +111,22 @@ impl Model {
         recipe: &Recipe,
         monitor: MonitorConfig,
     ) -> Result<(Model, RunReport), FitError> {
+        Model::fit_observed(table, spec, recipe, monitor, &mut [])
+    }
+
+    /// [`Model::fit`] with more observers (a progress display, say).
+    pub fn fit_observed(
+        table: &Table,
+        spec: &EncoderSpec,
+        recipe: &Recipe,
+        monitor: MonitorConfig,
+        observers: &mut [&mut dyn Observer<f32>],
+    ) -> Result<(Model, RunReport), FitError> {
         let (train_rows, val_rows) = recipe.split(table.rows())?;
         let encoder = Encoder::fit(table, spec, &train_rows)?;
         let x = encoder.encode_inputs(table, None)?.mapv(|v| v as f32);
         let y = encoder.encode_target(table, None)?.mapv(|v| v as f32);
-        let (mut trained, report) = recipe.fit_reported(x.view(), y.view(), monitor, &mut [])?;
+        let (mut trained, report) = recipe.fit_reported(x.view(), y.view(), monitor, observers)?;
         let validation = (!val_rows.is_empty()).then(|| {
             let xv = x.select(ndarray::Axis(0), &val_rows);
             let pred = trained.predict(xv.view()).expect("encoded widths match");

@@ -63,8 +63,11 @@ pub struct Recipe {
     /// if `small_tables` is None).
     pub train: TrainConfig,
     /// Training settings for tables up to [`SMALL_TABLE_ROWS`] training rows; below
-    /// [`TINY_TABLE_ROWS`] rows their validation split is dropped.
+    /// [`TINY_TABLE_ROWS`] rows their validation split is dropped, unless
+    /// `keep_tiny_validation` is set.
     pub small_tables: Option<TrainConfig>,
+    /// Keep the validation split even on tables under [`TINY_TABLE_ROWS`] rows.
+    pub keep_tiny_validation: bool,
     /// Seed of the initialization (the split and shuffling use `train.seed`).
     pub seed: u64,
 }
@@ -94,8 +97,98 @@ impl Default for Recipe {
                 patience: Some(LBFGS_PATIENCE),
                 ..TrainConfig::default()
             }),
+            keep_tiny_validation: false,
             seed: 0,
         }
+    }
+}
+
+/// Changes to the default recipe, as a command line gives them: every `None` keeps the default.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct Overrides {
+    /// Hidden widths.
+    pub hidden: Option<Vec<usize>>,
+    /// Hidden activation.
+    pub activation: Option<Activation>,
+    /// Hidden initializer.
+    pub init: Option<Init>,
+    /// Optimizer for every table size (turns off the size-dependent choice).
+    pub optimizer: Option<OptimizerChoice>,
+    /// Learning rate of step-based optimizers.
+    pub lr: Option<f64>,
+    /// Most epochs (L-BFGS: iterations).
+    pub epochs: Option<usize>,
+    /// Mini-batch rows.
+    pub batch: Option<usize>,
+    /// L1 strength on weights.
+    pub l1: Option<f64>,
+    /// L2 strength on weights.
+    pub l2: Option<f64>,
+    /// Validation fraction (kept even on tiny tables).
+    pub val_frac: Option<f64>,
+    /// Early-stopping patience.
+    pub patience: Option<usize>,
+    /// Seed of initialization, split and shuffling.
+    pub seed: Option<u64>,
+}
+
+impl Overrides {
+    /// The default recipe with these changes applied to both size regimes.
+    pub fn recipe(&self) -> Recipe {
+        let mut recipe = Recipe::default();
+        if let Some(h) = &self.hidden {
+            recipe.hidden = h.clone();
+        }
+        recipe.activation = self.activation.or(recipe.activation);
+        recipe.init = self.init.or(recipe.init);
+        if let Some(opt) = self.optimizer {
+            let base = if opt.is_full_batch() {
+                recipe.small_tables.clone().unwrap_or_default()
+            } else {
+                recipe.train.clone()
+            };
+            recipe.train = TrainConfig {
+                optimizer: opt,
+                ..base
+            };
+            recipe.small_tables = None;
+        }
+        if let Some(seed) = self.seed {
+            recipe.seed = seed;
+        }
+        if self.val_frac.is_some() {
+            recipe.keep_tiny_validation = true;
+        }
+        let mut configs: Vec<&mut TrainConfig> = vec![&mut recipe.train];
+        if let Some(small) = recipe.small_tables.as_mut() {
+            configs.push(small);
+        }
+        for c in configs {
+            if let Some(lr) = self.lr {
+                c.lr = lr;
+            }
+            if let Some(e) = self.epochs {
+                c.epochs = e;
+            }
+            if let Some(b) = self.batch {
+                c.batch = b;
+            }
+            if let Some(v) = self.val_frac {
+                c.val_frac = v;
+            }
+            if let Some(p) = self.patience {
+                c.patience = Some(p);
+            }
+            if let Some(seed) = self.seed {
+                c.seed = seed;
+            }
+            if self.l1.is_some() || self.l2.is_some() {
+                let p = &mut c.objective.penalty;
+                p.l1 = self.l1.unwrap_or(p.l1);
+                p.l2 = self.l2.unwrap_or(p.l2);
+            }
+        }
+        recipe
     }
 }
 
@@ -134,7 +227,7 @@ impl Recipe {
             return self.train.clone();
         }
         let mut config = small.clone();
-        if rows < TINY_TABLE_ROWS {
+        if rows < TINY_TABLE_ROWS && !self.keep_tiny_validation {
             config.val_frac = 0.0;
         }
         config

@@ -1,0 +1,636 @@
+//! The `relume` command: train, predict, evaluate and inspect, thin over the library.
+//!
+//! Exit codes: 0 success; 2 bad usage, bad data or a bad model file; 1 internal error.
+
+use clap::{Args, Parser, Subcommand};
+use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
+use relume::data::{DataError, EncoderSpec, Impute, ReadOptions, Table};
+use relume::metrics::Metrics;
+use relume::model::{FitError, ModelError};
+use relume::monitor::MonitorConfig;
+use relume::network::Network;
+use relume::report::{plot_run, PlotOptions};
+use relume::train::{EpochRecord, Flow, Observer};
+use relume::{Activation, Init, LayerSpec, Model, OptimizerChoice, Overrides, Predictor};
+use std::io::{IsTerminal, Write};
+use std::path::{Path, PathBuf};
+use std::process::ExitCode;
+
+const CAUTIONS: &str =
+    "Cautions: predictions can feed decisions that hurt people (prices, credit, health, \
+safety). Validate on held-out data from your own process before use; rows flagged as outside the \
+training range are extrapolation; keep a human and domain review in the loop; follow local \
+regulations and defer to licensed professionals.";
+
+const EXAMPLES: &str = "Examples (the bundled cold-store demo table):
+  relume train --data examples/data/cold_store.csv --target power_kw --out cold.json --report run.json --plot run.svg
+  relume predict --model cold.json --data examples/data/cold_store.csv --out predictions.csv
+  relume evaluate --model cold.json --data examples/data/cold_store.csv --report eval.json
+  relume inspect --model cold.json";
+
+/// Train small rectifier-family neural regressors on tabular data and use them.
+#[derive(Parser, Debug)]
+#[command(name = "relume", version, about, after_help = format!("{EXAMPLES}\n\n{CAUTIONS}"))]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand, Debug)]
+enum Command {
+    /// Train a model on a CSV table and write the model file.
+    #[command(after_help = format!("Example:\n  relume train --data examples/data/cold_store.csv --target power_kw --out cold.json --report run.json --plot run.svg\n\n{CAUTIONS}"))]
+    Train(Box<TrainArgs>),
+    /// Predict every row of a CSV table (a file, or - for standard input).
+    #[command(after_help = format!("Example:\n  relume predict --model cold.json --data examples/data/cold_store.csv --key outdoor_c,refrigerant\n\n{CAUTIONS}"))]
+    Predict(PredictArgs),
+    /// Compare a model's predictions with the target column of a CSV table.
+    #[command(after_help = format!("Example:\n  relume evaluate --model cold.json --data examples/data/cold_store.csv --report eval.json\n\n{CAUTIONS}"))]
+    Evaluate(EvaluateArgs),
+    /// Show what a model file holds.
+    #[command(after_help = "Example:\n  relume inspect --model cold.json")]
+    Inspect(InspectArgs),
+}
+
+/// How to read the table.
+#[derive(Args, Debug)]
+struct TableArgs {
+    /// The CSV file (with a header row); - reads standard input.
+    #[arg(long, value_name = "FILE.csv")]
+    data: String,
+    /// Columns to read as text (categories) even if they look numeric.
+    #[arg(long, value_delimiter = ',', value_name = "COL,..")]
+    text_columns: Vec<String>,
+    /// Read NaN / inf cells as empty instead of refusing them.
+    #[arg(long)]
+    allow_non_finite: bool,
+}
+
+#[derive(Args, Debug)]
+struct TrainArgs {
+    #[command(flatten)]
+    table: TableArgs,
+    /// The column to predict.
+    #[arg(long, value_name = "COL")]
+    target: String,
+    /// Feature columns (default: every column but the target).
+    #[arg(long, value_delimiter = ',', value_name = "a,b,..")]
+    features: Option<Vec<String>>,
+    /// Hidden layer widths (default 64,64).
+    #[arg(long, value_delimiter = ',', value_name = "64,64")]
+    layers: Option<Vec<usize>>,
+    /// Hidden activation (default: gelu up to 1000 training rows, relu above).
+    #[arg(long, value_name = "relu")]
+    activation: Option<Activation>,
+    /// Weight initializer (default: he for rectifiers, lecun for selu, glorot for tanh/sigmoid).
+    #[arg(long, value_name = "he")]
+    init: Option<Init>,
+    /// Optimizer: sgd, momentum, nesterov, rmsprop, adam, amsgrad, adamw, lbfgs (default: lbfgs
+    /// up to 1000 training rows, adam above).
+    #[arg(long, value_name = "adam")]
+    optimizer: Option<OptimizerChoice>,
+    /// Learning rate (default 3e-3 for adam).
+    #[arg(long, value_name = "X")]
+    lr: Option<f64>,
+    /// Most epochs (L-BFGS: iterations).
+    #[arg(long, value_name = "N")]
+    epochs: Option<usize>,
+    /// Rows per mini-batch (default 32).
+    #[arg(long, value_name = "N")]
+    batch: Option<usize>,
+    /// L1 penalty on weights.
+    #[arg(long, value_name = "X")]
+    l1: Option<f64>,
+    /// L2 penalty on weights (default 3e-4 above 1000 rows, 0 below).
+    #[arg(long, value_name = "X")]
+    l2: Option<f64>,
+    /// Fraction of rows held out for early stopping and validation metrics (default 0.2).
+    #[arg(long, value_name = "0.2")]
+    val_frac: Option<f64>,
+    /// Epochs without validation improvement before stopping.
+    #[arg(long, value_name = "N")]
+    patience: Option<usize>,
+    /// Seed of initialization, split and shuffling (default 0).
+    #[arg(long, value_name = "N")]
+    seed: Option<u64>,
+    /// Fill empty cells: mean, median or most-frequent (recorded in the model).
+    #[arg(long, value_name = "HOW")]
+    impute: Option<ImputeArg>,
+    /// Model ln(target); predictions come back in the target's units.
+    #[arg(long)]
+    log_target: bool,
+    /// Where to write the model file.
+    #[arg(long, value_name = "MODEL")]
+    out: PathBuf,
+    /// Write the JSON run report here.
+    #[arg(long, value_name = "RUN.json")]
+    report: Option<PathBuf>,
+    /// Write an SVG chart of the run here.
+    #[arg(long, value_name = "RUN.svg")]
+    plot: Option<PathBuf>,
+    /// Draw the chart's loss axis linearly instead of on a log scale.
+    #[arg(long)]
+    linear_plot: bool,
+}
+
+#[derive(clap::ValueEnum, Clone, Copy, Debug)]
+enum ImputeArg {
+    Mean,
+    Median,
+    MostFrequent,
+}
+
+#[derive(Args, Debug)]
+struct PredictArgs {
+    /// The model file.
+    #[arg(long, value_name = "MODEL")]
+    model: PathBuf,
+    #[command(flatten)]
+    table: TableArgs,
+    /// Write the predictions here (default: standard output).
+    #[arg(long, value_name = "PRED.csv")]
+    out: Option<PathBuf>,
+    /// Columns copied from the input to identify each row (default: the row's line number).
+    #[arg(long, value_delimiter = ',', value_name = "COL,..")]
+    key: Vec<String>,
+}
+
+#[derive(Args, Debug)]
+struct EvaluateArgs {
+    /// The model file.
+    #[arg(long, value_name = "MODEL")]
+    model: PathBuf,
+    #[command(flatten)]
+    table: TableArgs,
+    /// Write the metrics as JSON here.
+    #[arg(long, value_name = "EVAL.json")]
+    report: Option<PathBuf>,
+}
+
+#[derive(Args, Debug)]
+struct InspectArgs {
+    /// The model file.
+    #[arg(long, value_name = "MODEL")]
+    model: PathBuf,
+}
+
+/// A failure, with the exit code it maps to.
+enum Failure {
+    /// Bad usage, data or model file: exit 2.
+    User(String),
+    /// A bug or an environment problem: exit 1.
+    Internal(String),
+}
+
+impl From<DataError> for Failure {
+    fn from(e: DataError) -> Self {
+        Failure::User(e.to_string())
+    }
+}
+
+impl From<ModelError> for Failure {
+    fn from(e: ModelError) -> Self {
+        Failure::User(e.to_string())
+    }
+}
+
+impl From<FitError> for Failure {
+    fn from(e: FitError) -> Self {
+        Failure::User(e.to_string())
+    }
+}
+
+fn io_failure(what: &Path, e: std::io::Error) -> Failure {
+    Failure::User(format!("{}: {e}", what.display()))
+}
+
+fn main() -> ExitCode {
+    std::panic::set_hook(Box::new(|info| {
+        eprintln!("relume: internal error: {info}");
+    }));
+    let cli = Cli::parse();
+    let outcome = std::panic::catch_unwind(|| match cli.command {
+        Command::Train(a) => train(*a),
+        Command::Predict(a) => predict(a),
+        Command::Evaluate(a) => evaluate(a),
+        Command::Inspect(a) => inspect(a),
+    });
+    match outcome {
+        Ok(Ok(())) => ExitCode::SUCCESS,
+        Ok(Err(Failure::User(message))) => {
+            eprintln!("relume: {message}");
+            ExitCode::from(2)
+        }
+        Ok(Err(Failure::Internal(message))) => {
+            eprintln!("relume: internal error: {message}");
+            ExitCode::from(1)
+        }
+        Err(_) => ExitCode::from(1),
+    }
+}
+
+fn read_table(args: &TableArgs) -> Result<Table, Failure> {
+    let options = ReadOptions {
+        text_columns: args.text_columns.clone(),
+        allow_non_finite: args.allow_non_finite,
+    };
+    Ok(if args.data == "-" {
+        Table::read(std::io::stdin().lock(), "stdin", &options)?
+    } else {
+        Table::read_path(Path::new(&args.data), &options)?
+    })
+}
+
+/// Epoch progress on a terminal; nothing when standard error is not one.
+struct Progress {
+    bar: ProgressBar,
+}
+
+impl Progress {
+    fn new(epochs: usize) -> Progress {
+        let bar = ProgressBar::new(epochs as u64);
+        if std::io::stderr().is_terminal() {
+            bar.set_style(
+                ProgressStyle::with_template("{bar:30} epoch {pos}/{len}  {msg}  eta {eta}")
+                    .expect("valid template"),
+            );
+        } else {
+            bar.set_draw_target(ProgressDrawTarget::hidden());
+        }
+        Progress { bar }
+    }
+}
+
+impl Observer<f32> for Progress {
+    fn after_epoch(&mut self, record: &EpochRecord, _: &mut Network<f32>) -> Flow {
+        self.bar.set_position(record.epoch as u64 + 1);
+        self.bar.set_message(match record.val_loss {
+            Some(v) => format!("train {:.4}  validation {v:.4}", record.train_loss),
+            None => format!("train {:.4}", record.train_loss),
+        });
+        Flow::Continue
+    }
+}
+
+fn train(a: TrainArgs) -> Result<(), Failure> {
+    let table = read_table(&a.table)?;
+    let spec = EncoderSpec {
+        target: a.target.clone(),
+        features: a.features.clone(),
+        impute: a.impute.map(|i| match i {
+            ImputeArg::Mean => Impute::Mean,
+            ImputeArg::Median => Impute::Median,
+            ImputeArg::MostFrequent => Impute::MostFrequent,
+        }),
+        log_target: a.log_target,
+    };
+    let recipe = Overrides {
+        hidden: a.layers.clone(),
+        activation: a.activation,
+        init: a.init,
+        optimizer: a.optimizer,
+        lr: a.lr,
+        epochs: a.epochs,
+        batch: a.batch,
+        l1: a.l1,
+        l2: a.l2,
+        val_frac: a.val_frac,
+        patience: a.patience,
+        seed: a.seed,
+    }
+    .recipe();
+    // Data summary.
+    let target = table.column(&a.target)?;
+    let values: Vec<f64> = match &target.data {
+        relume::data::ColumnData::Number(v) => v.iter().copied().filter(|v| !v.is_nan()).collect(),
+        relume::data::ColumnData::Text(_) => {
+            return Err(Failure::User(format!(
+                "{}: the target column '{}' is not numeric",
+                table.source, a.target
+            )))
+        }
+    };
+    let n = values.len().max(1) as f64;
+    let mean = values.iter().sum::<f64>() / n;
+    let sd = (values.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / n).sqrt();
+    let (lo, hi) = values
+        .iter()
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(l, h), &v| {
+            (l.min(v), h.max(v))
+        });
+    eprintln!(
+        "{}: {} rows, {} columns; target '{}': mean {mean:.4}, sd {sd:.4}, range [{lo}, {hi}]",
+        table.source,
+        table.rows(),
+        table.columns.len(),
+        a.target
+    );
+    let config = recipe.config_for(table.rows());
+    eprintln!(
+        "training: {} {:?} units, {} optimizer, up to {} epochs, validation {:.0}%",
+        recipe.activation_for(table.rows()),
+        recipe.hidden,
+        config.optimizer.name(),
+        config.epochs,
+        100.0 * config.val_frac
+    );
+    let mut progress = Progress::new(config.epochs);
+    let (model, mut report) = Model::fit_observed(
+        &table,
+        &spec,
+        &recipe,
+        MonitorConfig::default(),
+        &mut [&mut progress],
+    )?;
+    progress.bar.finish_and_clear();
+    eprintln!(
+        "encoded inputs: {} ({})",
+        model.encoder.width(),
+        model.encoder.input_names().join(", ")
+    );
+    let s = &model.summary;
+    eprintln!(
+        "trained {} epochs on {} rows (best epoch {}, stopped: {:?})",
+        s.epochs_run, s.train_rows, s.best_epoch, s.stop
+    );
+    if let Some(v) = &s.validation {
+        eprintln!(
+            "validation ({} rows): RMSE {:.4}  MAE {:.4}  R² {:.4}",
+            v.rows, v.rmse, v.mae, v.r2
+        );
+        report.final_metrics.extra = vec![
+            ("val_rmse".to_string(), v.rmse),
+            ("val_mae".to_string(), v.mae),
+            ("val_r2".to_string(), v.r2),
+        ];
+    }
+    for (k, dead) in s.dead_fractions.iter().enumerate() {
+        if *dead > 0.0 {
+            eprintln!(
+                "hidden layer {}: {:.0}% dead units at the end",
+                k + 1,
+                100.0 * dead
+            );
+        }
+    }
+    // Each kind of warning once per layer, with its remedy.
+    let mut shown: Vec<(relume::monitor::WarningKind, Option<usize>)> = Vec::new();
+    for w in &report.warnings {
+        if !shown.contains(&(w.kind, w.layer)) {
+            shown.push((w.kind, w.layer));
+            eprintln!(
+                "warning (epoch {}): {}. Remedy: {}",
+                w.epoch, w.message, w.remedy
+            );
+        }
+    }
+    for r in &report.rollbacks {
+        eprintln!(
+            "divergence guard: non-finite values in {} at epoch {}; rate cut to {:e}",
+            r.location, r.epoch, r.lr_after
+        );
+    }
+    model.save(&a.out)?;
+    eprintln!("model written to {}", a.out.display());
+    if let Some(path) = &a.report {
+        report.write_json(path).map_err(|e| io_failure(path, e))?;
+        eprintln!("run report written to {}", path.display());
+    }
+    if let Some(path) = &a.plot {
+        let svg = plot_run(
+            &report,
+            PlotOptions {
+                log_loss: !a.linear_plot,
+                ..PlotOptions::default()
+            },
+        );
+        relume::atomic::write_atomic(path, svg.as_bytes()).map_err(|e| io_failure(path, e))?;
+        eprintln!("chart written to {}", path.display());
+    }
+    eprintln!("\n{CAUTIONS}");
+    Ok(())
+}
+
+fn csv_field(text: &str) -> String {
+    if text.contains([',', '"', '\n', '\r']) {
+        format!("\"{}\"", text.replace('"', "\"\""))
+    } else {
+        text.to_string()
+    }
+}
+
+fn cell_text(table: &Table, column: &str, row: usize) -> Result<String, Failure> {
+    Ok(match &table.column(column)?.data {
+        relume::data::ColumnData::Number(v) if v[row].is_nan() => String::new(),
+        relume::data::ColumnData::Number(v) => v[row].to_string(),
+        relume::data::ColumnData::Text(v) => v[row].clone().unwrap_or_default(),
+    })
+}
+
+fn predict(a: PredictArgs) -> Result<(), Failure> {
+    let predictor = Predictor::load(&a.model)?;
+    let table = read_table(&a.table)?;
+    for k in &a.key {
+        table.column(k)?;
+    }
+    let rows = predictor.predict_table(&table)?;
+    let mut text = String::new();
+    let keys: Vec<String> = if a.key.is_empty() {
+        vec!["line".to_string()]
+    } else {
+        a.key.clone()
+    };
+    let header: Vec<String> = keys.iter().map(|k| csv_field(k)).collect();
+    text += &format!("{},prediction,extrapolated,issue\n", header.join(","));
+    let (mut failed, mut flagged) = (0, 0);
+    for (r, row) in rows.iter().enumerate() {
+        let key_values: Vec<String> = if a.key.is_empty() {
+            vec![row.line.to_string()]
+        } else {
+            a.key
+                .iter()
+                .map(|k| cell_text(&table, k, r).map(|t| csv_field(&t)))
+                .collect::<Result<_, _>>()?
+        };
+        let issue = match (&row.error, row.out_of_range.is_empty()) {
+            (Some(e), _) => {
+                failed += 1;
+                e.clone()
+            }
+            (None, false) => {
+                flagged += 1;
+                format!("outside the training range: {}", row.out_of_range.join(" "))
+            }
+            (None, true) => String::new(),
+        };
+        text += &format!(
+            "{},{},{},{}\n",
+            key_values.join(","),
+            row.value.map_or(String::new(), |v| v.to_string()),
+            !row.out_of_range.is_empty(),
+            csv_field(&issue)
+        );
+    }
+    match &a.out {
+        Some(path) => {
+            relume::atomic::write_atomic(path, text.as_bytes()).map_err(|e| io_failure(path, e))?;
+            eprintln!("{} predictions written to {}", rows.len(), path.display());
+        }
+        None => match std::io::stdout().write_all(text.as_bytes()) {
+            // A reader that stops early (`| head`) is not an error.
+            Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => return Ok(()),
+            Err(e) => {
+                return Err(Failure::Internal(format!(
+                    "cannot write to standard output: {e}"
+                )))
+            }
+            Ok(()) => {}
+        },
+    }
+    if flagged > 0 {
+        eprintln!("{flagged} rows are outside the training range (extrapolation): check them");
+    }
+    if failed > 0 {
+        eprintln!("{failed} rows could not be predicted (see the issue column)");
+    }
+    Ok(())
+}
+
+fn evaluate(a: EvaluateArgs) -> Result<(), Failure> {
+    let predictor = Predictor::load(&a.model)?;
+    let table = read_table(&a.table)?;
+    let encoder = predictor.encoder();
+    let target = encoder.target.name.clone();
+    let column = table.column(&target)?;
+    let relume::data::ColumnData::Number(truth) = &column.data else {
+        return Err(Failure::User(format!(
+            "{}: the target column '{target}' is not numeric",
+            table.source
+        )));
+    };
+    let rows = predictor.predict_table(&table)?;
+    let (mut predictions, mut targets) = (Vec::new(), Vec::new());
+    let (mut failed, mut flagged) = (0, 0);
+    for (r, row) in rows.iter().enumerate() {
+        match row.value {
+            Some(v) if !truth[r].is_nan() => {
+                predictions.push(v);
+                targets.push(truth[r]);
+                flagged += usize::from(!row.out_of_range.is_empty());
+            }
+            _ => failed += 1,
+        }
+    }
+    if predictions.is_empty() {
+        return Err(Failure::User(format!(
+            "{}: no row could be evaluated (empty targets or unusable rows)",
+            table.source
+        )));
+    }
+    let m = Metrics::compute(&predictions, &targets);
+    println!("rows      {}", m.rows);
+    println!("RMSE      {:.6}", m.rmse);
+    println!("MAE       {:.6}", m.mae);
+    println!("R²        {:.6}", m.r2);
+    match m.mape {
+        Some(p) => println!(
+            "MAPE      {p:.3}%  ({} zero targets left out)",
+            m.mape_skipped
+        ),
+        None => println!("MAPE      n/a (every target is 0)"),
+    }
+    let q = m.residual_quantiles;
+    println!(
+        "residual  5% {:.4}  25% {:.4}  median {:.4}  75% {:.4}  95% {:.4}",
+        q[0], q[1], q[2], q[3], q[4]
+    );
+    println!("flagged   {flagged} rows outside the training range; {failed} rows not evaluated");
+    if let Some(path) = &a.report {
+        let json = serde_json::json!({
+            "rows": m.rows,
+            "rmse": m.rmse,
+            "mae": m.mae,
+            "r2": m.r2,
+            "mape": m.mape,
+            "residual_quantiles": m.residual_quantiles,
+            "extrapolated_rows": flagged,
+            "rows_not_evaluated": failed,
+            "model": a.model.display().to_string(),
+            "data": table.source,
+        });
+        let text =
+            serde_json::to_string_pretty(&json).map_err(|e| Failure::Internal(e.to_string()))?;
+        relume::atomic::write_atomic(path, text.as_bytes()).map_err(|e| io_failure(path, e))?;
+        eprintln!("metrics written to {}", path.display());
+    }
+    Ok(())
+}
+
+fn inspect(a: InspectArgs) -> Result<(), Failure> {
+    let model = Model::load(&a.model)?;
+    let net = &model.network;
+    println!("model file {}", a.model.display());
+    println!("parameters {}", net.param_count());
+    println!("layers:");
+    for (i, spec) in net.specs().iter().enumerate() {
+        match spec {
+            LayerSpec::Affine {
+                inputs,
+                outputs,
+                weight_init,
+                ..
+            } => println!("  {i}: affine {inputs} -> {outputs} (initialized {weight_init:?})"),
+            LayerSpec::Activation { width, activation } => {
+                println!("  {i}: {activation} on {width} units")
+            }
+            LayerSpec::Dropout { width, rate } => println!("  {i}: dropout {rate} on {width}"),
+        }
+    }
+    println!("inputs:");
+    for f in &model.encoder.features {
+        match f {
+            relume::data::FeatureEncoding::Number {
+                name,
+                min,
+                max,
+                fill,
+            } => println!(
+                "  {name}: number, training range [{min}, {max}]{}",
+                fill.map_or(String::new(), |v| format!(", empty cells filled with {v}"))
+            ),
+            relume::data::FeatureEncoding::Category { name, levels, fill } => println!(
+                "  {name}: one-hot over {} categories ({}){}",
+                levels.len(),
+                levels.join(", "),
+                fill.as_ref().map_or(String::new(), |v| format!(
+                    ", empty cells filled with '{v}'"
+                ))
+            ),
+        }
+    }
+    let t = &model.encoder.target;
+    println!(
+        "target: {}{}",
+        t.name,
+        if t.log { " (modelled as ln)" } else { "" }
+    );
+    let s = &model.summary;
+    println!(
+        "training: {} rows, {} validation rows, {} epochs, best epoch {}, stopped: {:?}",
+        s.train_rows, s.val_rows, s.epochs_run, s.best_epoch, s.stop
+    );
+    if let Some(v) = &s.validation {
+        println!(
+            "validation: RMSE {:.4}, MAE {:.4}, R² {:.4}",
+            v.rmse, v.mae, v.r2
+        );
+    }
+    for (k, dead) in s.dead_fractions.iter().enumerate() {
+        println!(
+            "hidden layer {}: {:.1}% dead units at the end of training",
+            k + 1,
+            100.0 * dead
+        );
+    }
+    Ok(())
+}

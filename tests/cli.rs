@@ -1,0 +1,285 @@
+//! End-to-end tests of the `relume` binary on the demo table and on bad inputs.
+
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output, Stdio};
+use std::sync::OnceLock;
+
+const DEMO: &str = concat!(env!("CARGO_MANIFEST_DIR"), "/examples/data/cold_store.csv");
+
+fn relume(args: &[&str]) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_relume"))
+        .args(args)
+        .output()
+        .unwrap()
+}
+
+fn dir() -> &'static Path {
+    static DIR: OnceLock<PathBuf> = OnceLock::new();
+    DIR.get_or_init(|| {
+        let d = std::env::temp_dir().join(format!("relume-cli-{}", std::process::id()));
+        std::fs::create_dir_all(&d).unwrap();
+        d
+    })
+}
+
+fn path(name: &str) -> String {
+    dir().join(name).display().to_string()
+}
+
+/// Trains once on the demo table; every test that needs a model uses this one.
+fn model() -> String {
+    static MODEL: OnceLock<String> = OnceLock::new();
+    MODEL
+        .get_or_init(|| {
+            let out = path("cold.json");
+            let o = relume(&[
+                "train",
+                "--data",
+                DEMO,
+                "--target",
+                "power_kw",
+                "--out",
+                &out,
+                "--report",
+                &path("run.json"),
+                "--plot",
+                &path("run.svg"),
+            ]);
+            let err = String::from_utf8_lossy(&o.stderr);
+            assert!(o.status.success(), "{err}");
+            for needle in [
+                "2000 rows",
+                "validation (400 rows): RMSE",
+                "best epoch",
+                "Cautions",
+                "held-out",
+            ] {
+                assert!(err.contains(needle), "train output lacks '{needle}': {err}");
+            }
+            out
+        })
+        .clone()
+}
+
+fn write(name: &str, text: &str) -> String {
+    let p = path(name);
+    std::fs::write(&p, text).unwrap();
+    p
+}
+
+/// Runs, expects exit 2, and returns standard error.
+fn fails(args: &[&str]) -> String {
+    let o = relume(args);
+    let err = String::from_utf8_lossy(&o.stderr).to_string();
+    assert_eq!(o.status.code(), Some(2), "{args:?}: {err}");
+    assert!(
+        !err.contains("panicked") && !err.contains("RUST_BACKTRACE"),
+        "{err}"
+    );
+    err
+}
+
+#[test]
+fn train_writes_the_model_report_and_chart() {
+    model();
+    let report: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(path("run.json")).unwrap()).unwrap();
+    assert!(report["epochs"][0]["layers"][0]["dead_fraction"].is_number());
+    let svg = std::fs::read_to_string(path("run.svg")).unwrap();
+    assert!(svg.starts_with("<svg"));
+}
+
+#[test]
+fn predict_writes_keys_prediction_and_flag_from_a_file_or_stdin() {
+    let m = model();
+    let out = path("pred.csv");
+    let o = relume(&[
+        "predict",
+        "--model",
+        &m,
+        "--data",
+        DEMO,
+        "--out",
+        &out,
+        "--key",
+        "outdoor_c,refrigerant",
+    ]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let text = std::fs::read_to_string(&out).unwrap();
+    let mut lines = text.lines();
+    assert_eq!(
+        lines.next().unwrap(),
+        "outdoor_c,refrigerant,prediction,extrapolated,issue"
+    );
+    let first: Vec<&str> = lines.next().unwrap().split(',').collect();
+    assert_eq!(first[0..2], ["35.9", "hfc"]);
+    // Row 1 of the demo table: 38.136 kW measured.
+    assert!(
+        (first[2].parse::<f64>().unwrap() - 38.136).abs() < 1.5,
+        "{first:?}"
+    );
+    assert_eq!(text.lines().count(), 2001);
+
+    let input = "outdoor_c,setpoint_c,door_openings_per_h,load_t,refrigerant\n31,-18,12,20,co2\n60,-18,12,20,co2\n31,-18,12,20,propane\n";
+    let mut child = Command::new(env!("CARGO_BIN_EXE_relume"))
+        .args(["predict", "--model", &m, "--data", "-"])
+        .stdin(Stdio::piped())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    use std::io::Write;
+    child
+        .stdin
+        .take()
+        .unwrap()
+        .write_all(input.as_bytes())
+        .unwrap();
+    let o = child.wait_with_output().unwrap();
+    assert!(o.status.success());
+    let text = String::from_utf8(o.stdout).unwrap();
+    let rows: Vec<&str> = text.lines().collect();
+    assert_eq!(rows[0], "line,prediction,extrapolated,issue");
+    assert!(
+        rows[1].starts_with("2,") && rows[1].ends_with(",false,"),
+        "{}",
+        rows[1]
+    );
+    assert!(
+        rows[2].contains(",true,") && rows[2].contains("outdoor_c"),
+        "{}",
+        rows[2]
+    );
+    assert!(
+        rows[3].starts_with("4,,") && rows[3].contains("not seen in training"),
+        "{}",
+        rows[3]
+    );
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert!(
+        err.contains("extrapolation") && err.contains("could not be predicted"),
+        "{err}"
+    );
+}
+
+#[test]
+fn evaluate_prints_metrics_and_writes_the_agreed_json() {
+    let m = model();
+    let report = path("eval.json");
+    let o = relume(&[
+        "evaluate", "--model", &m, "--data", DEMO, "--report", &report,
+    ]);
+    assert!(o.status.success());
+    let out = String::from_utf8_lossy(&o.stdout);
+    assert!(out.contains("RMSE") && out.contains("R²"), "{out}");
+    let json: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&report).unwrap()).unwrap();
+    assert_eq!(json["rows"], 2000);
+    for key in ["rmse", "mae", "r2"] {
+        assert!(json[key].is_number(), "{key}");
+    }
+    assert!(json["rmse"].as_f64().unwrap() < 0.4);
+}
+
+#[test]
+fn inspect_shows_layers_inputs_and_training() {
+    let o = relume(&["inspect", "--model", &model()]);
+    assert!(o.status.success());
+    let out = String::from_utf8_lossy(&o.stdout);
+    for needle in [
+        "parameters",
+        "affine 7 -> 64",
+        "relu on 64 units",
+        "outdoor_c: number, training range",
+        "refrigerant: one-hot over 3",
+        "dead units",
+    ] {
+        assert!(out.contains(needle), "inspect lacks '{needle}': {out}");
+    }
+}
+
+#[test]
+fn help_shows_examples_and_cautions() {
+    for args in [
+        &["--help"][..],
+        &["train", "--help"],
+        &["predict", "--help"],
+        &["evaluate", "--help"],
+        &["inspect", "--help"],
+    ] {
+        let o = relume(args);
+        assert!(o.status.success());
+        let out = String::from_utf8_lossy(&o.stdout);
+        assert!(
+            out.contains("cold_store") || out.contains("cold.json"),
+            "{args:?}"
+        );
+        if args[0] != "inspect" {
+            assert!(out.contains("held-out"), "{args:?} lacks the cautions");
+        }
+    }
+}
+
+#[test]
+fn bad_inputs_exit_2_with_a_message_naming_the_problem_and_where() {
+    let out = path("never.json");
+    let train = |data: &str, target: &str| {
+        fails(&["train", "--data", data, "--target", target, "--out", &out])
+    };
+    let err = train(DEMO, "energy");
+    assert!(
+        err.contains("no column named 'energy'") && err.contains("power_kw"),
+        "{err}"
+    );
+    let ragged = write("ragged.csv", "a,b,y\n1,2,3\n4,5\n");
+    let err = train(&ragged, "y");
+    assert!(
+        err.contains("ragged.csv") && err.contains("line 3"),
+        "{err}"
+    );
+    let text = write("text.csv", "a,b,y\n1,2,3\n4,five,6\n");
+    let err = train(&text, "y");
+    assert!(
+        err.contains("text.csv")
+            && err.contains("line 3")
+            && err.contains("'b'")
+            && err.contains("'five'"),
+        "{err}"
+    );
+    let empty = write("empty.csv", "");
+    let err = train(&empty, "y");
+    assert!(err.contains("empty.csv") && err.contains("empty"), "{err}");
+    let err = train(&path("absent.csv"), "y");
+    assert!(
+        err.contains("absent.csv") && err.contains("cannot open"),
+        "{err}"
+    );
+    let err = fails(&[
+        "train", "--data", DEMO, "--target", "power_kw", "--out", &out, "--speed", "11",
+    ]);
+    assert!(err.contains("--speed"), "{err}");
+    let err = fails(&[
+        "train",
+        "--data",
+        DEMO,
+        "--target",
+        "power_kw",
+        "--out",
+        &out,
+        "--activation",
+        "relu9",
+    ]);
+    assert!(err.contains("relu9"), "{err}");
+    let broken = write(
+        "broken.json",
+        "{\"format\": \"relume-model\", \"version\": 1, \"encoder\": [",
+    );
+    let err = fails(&["predict", "--model", &broken, "--data", DEMO]);
+    assert!(
+        err.contains("broken.json") && err.contains("line 1"),
+        "{err}"
+    );
+    let err = fails(&["inspect", "--model", &broken]);
+    assert!(err.contains("broken.json"), "{err}");
+    assert!(!Path::new(&out).exists(), "nothing is written on failure");
+}
