@@ -47,6 +47,7 @@ pub mod report;
 pub mod scalar;
 pub mod scale;
 pub mod schedule;
+pub mod stats;
 pub mod train;
 
 pub use activation::Activation;
