@@ -28,6 +28,7 @@
 pub mod activation;
 pub mod atomic;
 mod buffer;
+pub mod compare;
 pub mod data;
 pub mod error;
 pub mod gradcheck;

@@ -104,7 +104,7 @@ impl Default for Recipe {
 }
 
 /// Changes to the default recipe, as a command line gives them: every `None` keeps the default.
-#[derive(Clone, Debug, Default, PartialEq)]
+#[derive(Clone, Debug, Default, PartialEq, Serialize, Deserialize)]
 pub struct Overrides {
     /// Hidden widths.
     pub hidden: Option<Vec<usize>>,

@@ -283,3 +283,82 @@ fn bad_inputs_exit_2_with_a_message_naming_the_problem_and_where() {
     assert!(err.contains("broken.json"), "{err}");
     assert!(!Path::new(&out).exists(), "nothing is written on failure");
 }
+
+#[test]
+fn compare_writes_table_report_and_chart_and_shards_merge() {
+    let mut csv = String::from("x,kind,y\n");
+    for i in 0..120 {
+        let x = i as f64 / 12.0;
+        csv += &format!("{x},{},{}\n", ["a", "b"][i % 2], x.sin() + (i % 2) as f64);
+    }
+    let data = write("cmp.csv", &csv);
+    let common = [
+        "--data",
+        data.as_str(),
+        "--target",
+        "y",
+        "--activations",
+        "relu,tanh",
+        "--seeds",
+        "3",
+        "--layers",
+        "8",
+        "--epochs",
+        "60",
+    ];
+    let (md, svg, json) = (path("cmp.md"), path("cmp.svg"), path("cmp.json"));
+    let mut args = vec!["compare"];
+    args.extend(common);
+    args.extend([
+        "--table",
+        md.as_str(),
+        "--plot",
+        svg.as_str(),
+        "--report",
+        json.as_str(),
+    ]);
+    let o = relume(&args);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let table = std::fs::read_to_string(&md).unwrap();
+    assert!(table.contains("| candidate |") && table.contains("relu") && table.contains("tanh"));
+    assert!(table.contains("best mean validation RMSE"));
+    assert!(std::fs::read_to_string(&svg).unwrap().starts_with("<svg"));
+    let mut parts = Vec::new();
+    for i in 0..3 {
+        let part = path(&format!("part{i}.json"));
+        let shard = format!("{i}/3");
+        let mut args = vec!["compare"];
+        args.extend(common);
+        args.extend(["--shard", shard.as_str(), "--report", part.as_str()]);
+        assert!(relume(&args).status.success());
+        parts.push(part);
+    }
+    let merged = path("merged.md");
+    let list = parts.join(",");
+    let o = relume(&["merge", "--reports", &list, "--table", &merged]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    // Same runs, same table except the wall times.
+    let strip = |t: &str| -> Vec<String> {
+        t.lines()
+            .map(|l| {
+                l.split('|')
+                    .enumerate()
+                    .filter(|(k, _)| *k != 9)
+                    .map(|(_, c)| c.to_string())
+                    .collect::<Vec<_>>()
+                    .join("|")
+            })
+            .collect()
+    };
+    assert_eq!(
+        strip(&std::fs::read_to_string(&merged).unwrap()),
+        strip(&table)
+    );
+    let err = fails(&["merge", "--reports", &parts[..2].join(",")]);
+    assert!(err.contains("missing"), "{err}");
+    let mut bad = vec!["compare"];
+    bad.extend(common);
+    bad.extend(["--shard", "3/3"]);
+    let err = fails(&bad);
+    assert!(err.contains("3/3"), "{err}");
+}

@@ -50,6 +50,79 @@ enum Command {
     /// Show what a model file holds.
     #[command(after_help = "Example:\n  relume inspect --model cold.json")]
     Inspect(InspectArgs),
+    /// Compare activations (and optionally initializers and learning rates) over seeds and
+    /// folds, paired, with confidence intervals and signed-rank tests.
+    #[command(after_help = format!("Examples:\n  relume compare --data examples/data/cold_store.csv --target power_kw --activations relu,leaky-relu,elu,gelu,tanh --seeds 5 --folds 2 --table cmp.md --plot cmp.svg\n  relume compare ... --shard 0/3 --report part0.json   (then part1, part2 as separate jobs)\n  relume merge --reports part0.json,part1.json,part2.json --table cmp.md\n\n{CAUTIONS}"))]
+    Compare(Box<CompareArgs>),
+    /// Combine the shard reports of one comparison into the full one.
+    #[command(
+        after_help = "Example:\n  relume merge --reports part0.json,part1.json,part2.json --report cmp.json --table cmp.md --plot cmp.svg"
+    )]
+    Merge(MergeArgs),
+}
+
+#[derive(Args, Debug)]
+struct CompareArgs {
+    #[command(flatten)]
+    table: TableArgs,
+    /// The column to predict.
+    #[arg(long, value_name = "COL")]
+    target: String,
+    /// Feature columns (default: every column but the target).
+    #[arg(long, value_delimiter = ',', value_name = "a,b,..")]
+    features: Option<Vec<String>>,
+    /// Activations to compare.
+    #[arg(long, value_delimiter = ',', value_name = "relu,elu,..")]
+    activations: Vec<Activation>,
+    /// Initializers to cross with the activations (default: each activation's own).
+    #[arg(long, value_delimiter = ',', value_name = "he,glorot,..")]
+    inits: Vec<Init>,
+    /// Learning rates to cross with the activations (default: the default rate).
+    #[arg(long, value_delimiter = ',', value_name = "1e-3,3e-3")]
+    lrs: Vec<f64>,
+    /// Seeds per candidate.
+    #[arg(long, default_value_t = 5)]
+    seeds: usize,
+    /// Folds of the outer split (1: one seeded 20% holdout).
+    #[arg(long, default_value_t = 1)]
+    folds: usize,
+    /// Hidden layer widths for every candidate.
+    #[arg(long, value_delimiter = ',', value_name = "64,64")]
+    layers: Option<Vec<usize>>,
+    /// Most epochs per run.
+    #[arg(long, value_name = "N")]
+    epochs: Option<usize>,
+    /// Optimizer for every candidate.
+    #[arg(long, value_name = "adam")]
+    optimizer: Option<OptimizerChoice>,
+    /// Run only shard i of n of the grid and write a partial report (merge the parts later).
+    #[arg(long, value_name = "i/n")]
+    shard: Option<String>,
+    /// Write the JSON report here.
+    #[arg(long, value_name = "CMP.json")]
+    report: Option<PathBuf>,
+    /// Write the Markdown table here.
+    #[arg(long = "table", value_name = "CMP.md")]
+    table_out: Option<PathBuf>,
+    /// Write the SVG chart here.
+    #[arg(long, value_name = "CMP.svg")]
+    plot: Option<PathBuf>,
+}
+
+#[derive(Args, Debug)]
+struct MergeArgs {
+    /// The shard reports.
+    #[arg(long, value_delimiter = ',', value_name = "A.json,B.json,..")]
+    reports: Vec<PathBuf>,
+    /// Write the merged JSON report here.
+    #[arg(long, value_name = "CMP.json")]
+    report: Option<PathBuf>,
+    /// Write the Markdown table here.
+    #[arg(long = "table", value_name = "CMP.md")]
+    table_out: Option<PathBuf>,
+    /// Write the SVG chart here.
+    #[arg(long, value_name = "CMP.svg")]
+    plot: Option<PathBuf>,
 }
 
 /// How to read the table.
@@ -214,6 +287,8 @@ fn main() -> ExitCode {
         Command::Predict(a) => predict(a),
         Command::Evaluate(a) => evaluate(a),
         Command::Inspect(a) => inspect(a),
+        Command::Compare(a) => compare(*a),
+        Command::Merge(a) => merge(a),
     });
     match outcome {
         Ok(Ok(())) => ExitCode::SUCCESS,
@@ -633,4 +708,108 @@ fn inspect(a: InspectArgs) -> Result<(), Failure> {
         );
     }
     Ok(())
+}
+
+fn parse_shard(text: &str) -> Result<(usize, usize), Failure> {
+    let bad = || Failure::User(format!("--shard '{text}': expected i/n with 0 <= i < n"));
+    let (i, n) = text.split_once('/').ok_or_else(bad)?;
+    let (i, n): (usize, usize) = (
+        i.trim().parse().map_err(|_| bad())?,
+        n.trim().parse().map_err(|_| bad())?,
+    );
+    if n == 0 || i >= n {
+        return Err(bad());
+    }
+    Ok((i, n))
+}
+
+fn write_outputs(
+    report: &relume::compare::SweepReport,
+    json: Option<&PathBuf>,
+    table: Option<&PathBuf>,
+    plot: Option<&PathBuf>,
+) -> Result<(), Failure> {
+    if let Some(path) = json {
+        relume::atomic::write_atomic(path, report.to_json().as_bytes())
+            .map_err(|e| io_failure(path, e))?;
+        eprintln!("report written to {}", path.display());
+    }
+    if report.shard.is_some() {
+        if table.is_some() || plot.is_some() {
+            eprintln!("this is one shard: the table and chart come from `relume merge`");
+        }
+        return Ok(());
+    }
+    let comparison = relume::compare::summarize(report).map_err(Failure::User)?;
+    let md = relume::compare::markdown(&comparison);
+    println!("{md}");
+    if let Some(path) = table {
+        relume::atomic::write_atomic(path, md.as_bytes()).map_err(|e| io_failure(path, e))?;
+        eprintln!("table written to {}", path.display());
+    }
+    if let Some(path) = plot {
+        let svg = relume::report::plot_comparison(&comparison, report);
+        relume::atomic::write_atomic(path, svg.as_bytes()).map_err(|e| io_failure(path, e))?;
+        eprintln!("chart written to {}", path.display());
+    }
+    Ok(())
+}
+
+fn compare(a: CompareArgs) -> Result<(), Failure> {
+    if a.activations.is_empty() {
+        return Err(Failure::User(
+            "--activations needs at least one activation".to_string(),
+        ));
+    }
+    let shard = a.shard.as_deref().map(parse_shard).transpose()?;
+    let table = read_table(&a.table)?;
+    let spec = EncoderSpec {
+        target: a.target.clone(),
+        features: a.features.clone(),
+        ..EncoderSpec::default()
+    };
+    let base = Overrides {
+        hidden: a.layers.clone(),
+        epochs: a.epochs,
+        optimizer: a.optimizer,
+        ..Overrides::default()
+    };
+    let plan =
+        relume::compare::SweepPlan::grid(&a.activations, &a.inits, &a.lrs, a.seeds, a.folds, base);
+    let cells = plan.cells().len();
+    eprintln!(
+        "{}: {} candidates × {} seeds × {} folds = {cells} runs{}",
+        table.source,
+        plan.candidates.len(),
+        plan.seeds,
+        plan.fold_count(),
+        shard.map_or(String::new(), |(i, n)| format!(", shard {i}/{n}"))
+    );
+    let report = relume::compare::run(&table, &spec, &plan, shard)?;
+    write_outputs(
+        &report,
+        a.report.as_ref(),
+        a.table_out.as_ref(),
+        a.plot.as_ref(),
+    )?;
+    eprintln!("\n{CAUTIONS}");
+    Ok(())
+}
+
+fn merge(a: MergeArgs) -> Result<(), Failure> {
+    let mut parts = Vec::new();
+    for path in &a.reports {
+        let text = std::fs::read_to_string(path).map_err(|e| io_failure(path, e))?;
+        parts.push(
+            relume::compare::SweepReport::from_json(&text)
+                .map_err(|e| Failure::User(format!("{}: {e}", path.display())))?,
+        );
+    }
+    let merged = relume::compare::merge(&parts).map_err(Failure::User)?;
+    write_outputs(
+        &merged,
+        a.report.as_ref(),
+        a.table_out.as_ref(),
+        a.plot.as_ref(),
+    )
 }

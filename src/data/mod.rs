@@ -235,6 +235,30 @@ impl Table {
         })
     }
 
+    /// A table of the given rows only (in the order given).
+    pub fn select(&self, rows: &[usize]) -> Table {
+        let columns = self
+            .columns
+            .iter()
+            .map(|c| Column {
+                name: c.name.clone(),
+                data: match &c.data {
+                    ColumnData::Number(v) => {
+                        ColumnData::Number(rows.iter().map(|&r| v[r]).collect())
+                    }
+                    ColumnData::Text(v) => {
+                        ColumnData::Text(rows.iter().map(|&r| v[r].clone()).collect())
+                    }
+                },
+            })
+            .collect();
+        Table {
+            source: self.source.clone(),
+            columns,
+            lines: rows.iter().map(|&r| self.lines[r]).collect(),
+        }
+    }
+
     /// Number of data rows.
     pub fn rows(&self) -> usize {
         self.lines.len()

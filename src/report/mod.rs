@@ -7,7 +7,7 @@
 
 mod svg;
 
-pub use svg::{plot_run, PlotOptions};
+pub use svg::{plot_comparison, plot_run, PlotOptions};
 
 use crate::layer::LayerSpec;
 use crate::monitor::{LayerStats, Monitor, TensorHealth, Warning};

@@ -322,3 +322,134 @@ pub fn plot_run(report: &RunReport, options: PlotOptions) -> String {
     svg.push_str("</svg>\n");
     svg
 }
+
+/// An SVG chart of a comparison: each candidate's validation RMSE per run (dots) with its mean
+/// and 95% interval (bar), and its wall time per epoch.
+pub fn plot_comparison(
+    comparison: &crate::compare::Comparison,
+    report: &crate::compare::SweepReport,
+) -> String {
+    let rows = comparison.candidates.len().max(1);
+    let (w, row_h) = (860.0, 34.0);
+    let h = 90.0 + row_h * rows as f64 + 50.0;
+    let (left, mid, right_w) = (170.0, 470.0, 130.0);
+    let values: Vec<f64> = report.runs.iter().filter_map(|r| r.val_rmse).collect();
+    let (mut lo, mut hi) = values
+        .iter()
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
+            (a.min(v), b.max(v))
+        });
+    if !lo.is_finite() {
+        (lo, hi) = (0.0, 1.0);
+    }
+    let pad = 0.05 * (hi - lo).max(1e-12);
+    let rmse = Panel {
+        left,
+        top: 60.0,
+        width: mid,
+        height: row_h * rows as f64,
+        x_max: 1.0,
+        y_min: 0.0,
+        y_max: 1.0,
+        log: false,
+    };
+    let x_of = |v: f64| left + mid * (v - (lo - pad)) / ((hi + pad) - (lo - pad));
+    let max_time = comparison
+        .candidates
+        .iter()
+        .map(|c| c.seconds_per_epoch)
+        .fold(0.0_f64, f64::max)
+        .max(1e-12);
+    let time_left = left + mid + 40.0;
+    let mut svg = String::new();
+    let _ = writeln!(
+        svg,
+        r#"<svg xmlns="http://www.w3.org/2000/svg" width="{w}" height="{h}" viewBox="0 0 {w} {h}" font-family="sans-serif">"#
+    );
+    let _ = writeln!(svg, r#"<rect width="{w}" height="{h}" fill="white"/>"#);
+    let _ = writeln!(
+        svg,
+        r#"<text x="{left}" y="30" font-size="15" font-weight="bold">Validation RMSE per run (dots), mean and 95% CI (bar)</text><text x="{time_left}" y="30" font-size="15" font-weight="bold">ms per epoch</text>"#
+    );
+    let _ = writeln!(
+        svg,
+        r##"<rect x="{left}" y="{:.1}" width="{mid}" height="{:.1}" fill="#fbfbfb" stroke="#999"/>"##,
+        rmse.top, rmse.height
+    );
+    for tick in ticks(lo - pad, hi + pad, false) {
+        let x = x_of(tick);
+        let _ = writeln!(
+            svg,
+            r##"<line x1="{x:.1}" x2="{x:.1}" y1="{:.1}" y2="{:.1}" stroke="#e3e3e3"/><text x="{x:.1}" y="{:.1}" font-size="11" text-anchor="middle">{}</text>"##,
+            rmse.top,
+            rmse.top + rmse.height,
+            rmse.top + rmse.height + 16.0,
+            label(tick)
+        );
+    }
+    for (i, c) in comparison.candidates.iter().enumerate() {
+        let y = rmse.top + row_h * (i as f64 + 0.5);
+        let colour = if i == comparison.best {
+            VAL_COLOUR
+        } else {
+            TRAIN_COLOUR
+        };
+        let weight = if i == comparison.best {
+            "bold"
+        } else {
+            "normal"
+        };
+        let _ = writeln!(
+            svg,
+            r#"<text x="{:.1}" y="{:.1}" font-size="12" text-anchor="end" font-weight="{weight}">{}</text>"#,
+            left - 8.0,
+            y + 4.0,
+            c.label
+        );
+        for r in report.runs.iter().filter(|r| r.candidate == i) {
+            if let Some(v) = r.val_rmse {
+                let _ = writeln!(
+                    svg,
+                    r#"<circle cx="{:.1}" cy="{y:.1}" r="3.5" fill="{colour}" fill-opacity="0.55"/>"#,
+                    x_of(v)
+                );
+            }
+        }
+        if c.ci95.0.is_finite() && c.ci95.1.is_finite() {
+            let _ = writeln!(
+                svg,
+                r#"<line x1="{:.1}" x2="{:.1}" y1="{:.1}" y2="{:.1}" stroke="{colour}" stroke-width="3"/>"#,
+                x_of(c.ci95.0),
+                x_of(c.ci95.1),
+                y + 9.0,
+                y + 9.0
+            );
+        }
+        if c.mean_rmse.is_finite() {
+            let _ = writeln!(
+                svg,
+                r##"<line x1="{x:.1}" x2="{x:.1}" y1="{:.1}" y2="{:.1}" stroke="#222" stroke-width="2"/>"##,
+                y - 9.0,
+                y + 12.0,
+                x = x_of(c.mean_rmse)
+            );
+        }
+        let bar = right_w * c.seconds_per_epoch / max_time;
+        let _ = writeln!(
+            svg,
+            r##"<rect x="{time_left:.1}" y="{:.1}" width="{bar:.1}" height="14" fill="#9aa5b1"/><text x="{:.1}" y="{:.1}" font-size="11">{:.2}</text>"##,
+            y - 7.0,
+            time_left + bar + 4.0,
+            y + 4.0,
+            1000.0 * c.seconds_per_epoch
+        );
+    }
+    let _ = writeln!(
+        svg,
+        r#"<text x="{:.1}" y="{:.1}" font-size="12" text-anchor="middle">validation RMSE (target units); best in bold</text>"#,
+        left + mid / 2.0,
+        h - 14.0
+    );
+    svg.push_str("</svg>\n");
+    svg
+}

@@ -1,0 +1,601 @@
+//! The activation bake-off: candidates (activation, optionally initializer and learning rate)
+//! × seeds × folds on the user's table, in a paired design — every candidate sees the same
+//! seeds and the same folds, everything else identical — summarized with Student-t intervals
+//! and Wilcoxon signed-rank tests against the best candidate.
+//!
+//! Runs are spread over the cores with rayon; each run depends only on its (candidate, seed,
+//! fold), so results do not depend on the thread count. `shard` runs a slice of the grid for
+//! batch schedulers; [`merge`] puts shard reports back together.
+
+use crate::activation::Activation;
+use crate::data::{kfold, ColumnData, DataError, EncoderSpec, Table};
+use crate::init::Init;
+use crate::model::{FitError, Model};
+use crate::monitor::MonitorConfig;
+use crate::predict::Predictor;
+use crate::recipe::Overrides;
+use crate::stats::{mean_sd_ci95, wilcoxon};
+use crate::train::TrainError;
+use rayon::prelude::*;
+use serde::{Deserialize, Serialize};
+use std::time::Instant;
+
+/// Name in the `format` field of sweep reports.
+pub const SWEEP_FORMAT: &str = "relume-sweep";
+/// Version of the sweep report layout.
+pub const SWEEP_VERSION: u32 = 1;
+
+/// One setting under comparison.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct Candidate {
+    /// Short label, e.g. "relu" or "elu, he, lr 1e-3".
+    pub label: String,
+    /// Hidden activation.
+    pub activation: Activation,
+    /// Initializer (None: the activation's default).
+    pub init: Option<Init>,
+    /// Learning rate (None: the default).
+    pub lr: Option<f64>,
+}
+
+/// The grid and the design.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct SweepPlan {
+    /// Candidates, in order.
+    pub candidates: Vec<Candidate>,
+    /// Seeds 0..seeds (initialization, internal validation split and shuffling).
+    pub seeds: usize,
+    /// Folds of the outer split: ≥ 2 for k-fold, else one seeded holdout of `holdout`.
+    pub folds: usize,
+    /// Held-out fraction when `folds` < 2.
+    pub holdout: f64,
+    /// Seed of the outer split (the same for every candidate and seed).
+    pub split_seed: u64,
+    /// Settings shared by every run.
+    pub base: Overrides,
+}
+
+/// One grid cell.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct Cell {
+    /// Candidate index.
+    pub candidate: usize,
+    /// Seed.
+    pub seed: u64,
+    /// Fold index.
+    pub fold: usize,
+}
+
+impl SweepPlan {
+    /// The cartesian product of activations × initializers × learning rates (an empty list
+    /// means "the default" for that axis).
+    pub fn grid(
+        activations: &[Activation],
+        inits: &[Init],
+        lrs: &[f64],
+        seeds: usize,
+        folds: usize,
+        base: Overrides,
+    ) -> SweepPlan {
+        let inits: Vec<Option<Init>> = if inits.is_empty() {
+            vec![None]
+        } else {
+            inits.iter().copied().map(Some).collect()
+        };
+        let lrs: Vec<Option<f64>> = if lrs.is_empty() {
+            vec![None]
+        } else {
+            lrs.iter().copied().map(Some).collect()
+        };
+        let mut candidates = Vec::new();
+        for &activation in activations {
+            for &init in &inits {
+                for &lr in &lrs {
+                    let mut label = activation.to_string();
+                    if let Some(i) = init {
+                        label += &format!(", {}", init_label(&i));
+                    }
+                    if let Some(lr) = lr {
+                        label += &format!(", lr {lr:e}");
+                    }
+                    candidates.push(Candidate {
+                        label,
+                        activation,
+                        init,
+                        lr,
+                    });
+                }
+            }
+        }
+        SweepPlan {
+            candidates,
+            seeds: seeds.max(1),
+            folds,
+            holdout: 0.2,
+            split_seed: 0,
+            base,
+        }
+    }
+
+    /// Number of outer folds actually used.
+    pub fn fold_count(&self) -> usize {
+        if self.folds >= 2 {
+            self.folds
+        } else {
+            1
+        }
+    }
+
+    /// Every cell, candidate-major, then seed, then fold.
+    pub fn cells(&self) -> Vec<Cell> {
+        let mut out = Vec::new();
+        for candidate in 0..self.candidates.len() {
+            for seed in 0..self.seeds as u64 {
+                for fold in 0..self.fold_count() {
+                    out.push(Cell {
+                        candidate,
+                        seed,
+                        fold,
+                    });
+                }
+            }
+        }
+        out
+    }
+
+    /// The outer (training, held-out) rows of every fold: the same for every candidate.
+    pub fn splits(&self, rows: usize) -> Vec<(Vec<usize>, Vec<usize>)> {
+        if self.folds >= 2 {
+            kfold(rows, self.folds, self.split_seed)
+        } else {
+            vec![crate::data::holdout(rows, self.holdout, self.split_seed)]
+        }
+    }
+}
+
+fn init_label(init: &Init) -> String {
+    match init {
+        Init::He { .. } => "he".into(),
+        Init::Glorot { .. } => "glorot".into(),
+        Init::Lecun { .. } => "lecun".into(),
+        Init::Orthogonal { .. } => "orthogonal".into(),
+        Init::Constant { value } => format!("constant {value}"),
+    }
+}
+
+/// The outcome of one run.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct RunResult {
+    /// Candidate index.
+    pub candidate: usize,
+    /// Seed.
+    pub seed: u64,
+    /// Fold index.
+    pub fold: usize,
+    /// RMSE on the fold's held-out rows, in target units (None if training diverged).
+    pub val_rmse: Option<f64>,
+    /// Epoch of the best (internal) validation loss.
+    pub best_epoch: usize,
+    /// Epochs run.
+    pub epochs: usize,
+    /// Wall time per epoch, in seconds.
+    pub seconds_per_epoch: f64,
+    /// Mean dead fraction of the hidden layers at the end.
+    pub dead_fraction: f64,
+    /// Mean exact-zero fraction of the hidden layers at the end.
+    pub zero_fraction: f64,
+    /// Why the run diverged, if it did.
+    pub diverged: Option<String>,
+}
+
+/// All runs of a sweep (or of one shard of it).
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct SweepReport {
+    /// Always [`SWEEP_FORMAT`].
+    pub format: String,
+    /// [`SWEEP_VERSION`].
+    pub version: u32,
+    /// The plan.
+    pub plan: SweepPlan,
+    /// (i, n) if this report holds only shard i of n.
+    pub shard: Option<(usize, usize)>,
+    /// Results in cell order.
+    pub runs: Vec<RunResult>,
+}
+
+impl SweepReport {
+    /// Pretty JSON.
+    pub fn to_json(&self) -> String {
+        serde_json::to_string_pretty(self).expect("a sweep report serializes")
+    }
+
+    /// Parses a sweep report, checking format and version.
+    pub fn from_json(text: &str) -> Result<SweepReport, String> {
+        let r: SweepReport =
+            serde_json::from_str(text).map_err(|e| format!("not a sweep report: {e}"))?;
+        if r.format != SWEEP_FORMAT || r.version != SWEEP_VERSION {
+            return Err(format!(
+                "format '{}' version {} is not {SWEEP_FORMAT} version {SWEEP_VERSION}",
+                r.format, r.version
+            ));
+        }
+        Ok(r)
+    }
+}
+
+/// Runs the plan on `table` (all cells, or shard i of n: the cells whose index ≡ i mod n).
+pub fn run(
+    table: &Table,
+    spec: &EncoderSpec,
+    plan: &SweepPlan,
+    shard: Option<(usize, usize)>,
+) -> Result<SweepReport, FitError> {
+    if let Some((i, n)) = shard {
+        if n == 0 || i >= n {
+            return Err(FitError::Data(DataError::Table {
+                source_name: table.source.clone(),
+                message: format!("shard {i}/{n}: need 0 <= i < n"),
+            }));
+        }
+    }
+    let ColumnData::Number(truth) = &table.column(&spec.target)?.data else {
+        return Err(FitError::Data(DataError::Table {
+            source_name: table.source.clone(),
+            message: format!("the target column '{}' is not numeric", spec.target),
+        }));
+    };
+    let splits = plan.splits(table.rows());
+    let cells: Vec<Cell> = plan
+        .cells()
+        .into_iter()
+        .enumerate()
+        .filter(|(k, _)| shard.is_none_or(|(i, n)| k % n == i))
+        .map(|(_, c)| c)
+        .collect();
+    let runs = cells
+        .par_iter()
+        .map(|cell| run_cell(table, spec, plan, &splits, truth, *cell))
+        .collect::<Result<Vec<_>, _>>()?;
+    Ok(SweepReport {
+        format: SWEEP_FORMAT.to_string(),
+        version: SWEEP_VERSION,
+        plan: plan.clone(),
+        shard,
+        runs,
+    })
+}
+
+fn run_cell(
+    table: &Table,
+    spec: &EncoderSpec,
+    plan: &SweepPlan,
+    splits: &[(Vec<usize>, Vec<usize>)],
+    truth: &[f64],
+    cell: Cell,
+) -> Result<RunResult, FitError> {
+    let candidate = &plan.candidates[cell.candidate];
+    let (train_rows, test_rows) = &splits[cell.fold];
+    let overrides = Overrides {
+        activation: Some(candidate.activation),
+        init: candidate.init.or(plan.base.init),
+        lr: candidate.lr.or(plan.base.lr),
+        seed: Some(cell.seed),
+        ..plan.base.clone()
+    };
+    let recipe = overrides.recipe();
+    let started = Instant::now();
+    let fitted = Model::fit(
+        &table.select(train_rows),
+        spec,
+        &recipe,
+        MonitorConfig::default(),
+    );
+    let seconds = started.elapsed().as_secs_f64();
+    let (model, report) = match fitted {
+        Ok(m) => m,
+        Err(FitError::Train(e @ TrainError::Diverged { .. })) => {
+            return Ok(RunResult {
+                candidate: cell.candidate,
+                seed: cell.seed,
+                fold: cell.fold,
+                val_rmse: None,
+                best_epoch: 0,
+                epochs: 0,
+                seconds_per_epoch: 0.0,
+                dead_fraction: 0.0,
+                zero_fraction: 0.0,
+                diverged: Some(e.to_string()),
+            })
+        }
+        Err(e) => return Err(e),
+    };
+    let predictions = Predictor::new(&model).predict_table(&table.select(test_rows))?;
+    let (mut sse, mut n) = (0.0, 0usize);
+    for (row, &r) in predictions.iter().zip(test_rows) {
+        if let (Some(p), t) = (row.value, truth[r]) {
+            if !t.is_nan() {
+                sse += (p - t).powi(2);
+                n += 1;
+            }
+        }
+    }
+    let last = report.epochs.last();
+    let mean_of = |f: fn(&crate::monitor::LayerStats) -> f64| {
+        last.map_or(0.0, |e| {
+            e.layers.iter().map(f).sum::<f64>() / e.layers.len().max(1) as f64
+        })
+    };
+    let epochs = model.summary.epochs_run.max(1);
+    Ok(RunResult {
+        candidate: cell.candidate,
+        seed: cell.seed,
+        fold: cell.fold,
+        val_rmse: (n > 0).then(|| (sse / n as f64).sqrt()),
+        best_epoch: model.summary.best_epoch,
+        epochs: model.summary.epochs_run,
+        seconds_per_epoch: seconds / epochs as f64,
+        dead_fraction: mean_of(|l| l.dead_fraction),
+        zero_fraction: mean_of(|l| l.zero_fraction),
+        diverged: None,
+    })
+}
+
+/// Combines shard reports of one plan into the full report.
+pub fn merge(reports: &[SweepReport]) -> Result<SweepReport, String> {
+    let first = reports.first().ok_or("no reports to merge")?;
+    let Some((_, n)) = first.shard else {
+        return Err("the first report is not a shard".to_string());
+    };
+    let mut seen = vec![false; n];
+    for r in reports {
+        if r.plan != first.plan {
+            return Err("the reports come from different plans".to_string());
+        }
+        match r.shard {
+            Some((i, m)) if m == n && i < n && !seen[i] => seen[i] = true,
+            Some((i, m)) => {
+                return Err(format!(
+                    "shard {i}/{m} is repeated or does not fit {n} shards"
+                ))
+            }
+            None => return Err("a report is not a shard".to_string()),
+        }
+    }
+    if let Some(i) = seen.iter().position(|s| !s) {
+        return Err(format!("shard {i}/{n} is missing"));
+    }
+    let cells = first.plan.cells();
+    let mut runs: Vec<RunResult> = reports
+        .iter()
+        .flat_map(|r| r.runs.iter().cloned())
+        .collect();
+    let index = |r: &RunResult| {
+        cells
+            .iter()
+            .position(|c| c.candidate == r.candidate && c.seed == r.seed && c.fold == r.fold)
+            .unwrap_or(usize::MAX)
+    };
+    runs.sort_by_key(index);
+    if runs.len() != cells.len() {
+        return Err(format!("{} runs for {} cells", runs.len(), cells.len()));
+    }
+    Ok(SweepReport {
+        shard: None,
+        runs,
+        ..first.clone()
+    })
+}
+
+/// Paired comparison of a candidate with the best one.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct Paired {
+    /// Pairs (same seed and fold) where both runs finished.
+    pub n: usize,
+    /// Mean of candidate − best validation RMSE.
+    pub mean_difference: f64,
+    /// 95% Student-t interval of the mean difference.
+    pub ci95: (f64, f64),
+    /// Two-sided Wilcoxon signed-rank p-value.
+    pub p_value: f64,
+    /// Whether the p-value is exact.
+    pub exact: bool,
+}
+
+/// Everything reported about one candidate.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct CandidateSummary {
+    /// The candidate's label.
+    pub label: String,
+    /// Runs that finished.
+    pub runs: usize,
+    /// Runs that diverged.
+    pub diverged: usize,
+    /// Mean validation RMSE.
+    pub mean_rmse: f64,
+    /// Sample standard deviation of the validation RMSE.
+    pub sd_rmse: f64,
+    /// 95% Student-t interval of the mean validation RMSE.
+    pub ci95: (f64, f64),
+    /// Median epoch of the best validation loss.
+    pub median_best_epoch: f64,
+    /// Mean wall time per epoch, seconds.
+    pub seconds_per_epoch: f64,
+    /// Mean final dead fraction.
+    pub dead_fraction: f64,
+    /// Mean final zero fraction.
+    pub zero_fraction: f64,
+    /// Against the best candidate (None for the best itself).
+    pub versus_best: Option<Paired>,
+    /// In plain words.
+    pub verdict: String,
+}
+
+/// The comparison of a full sweep.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct Comparison {
+    /// One summary per candidate, in plan order.
+    pub candidates: Vec<CandidateSummary>,
+    /// Index of the best candidate (lowest mean validation RMSE).
+    pub best: usize,
+    /// Seeds × folds per candidate.
+    pub runs_per_candidate: usize,
+}
+
+/// Summarizes a full (merged or unsharded) sweep report.
+pub fn summarize(report: &SweepReport) -> Result<Comparison, String> {
+    if report.shard.is_some() {
+        return Err("this is one shard of a sweep: merge the shards first".to_string());
+    }
+    let k = report.plan.candidates.len();
+    let rmse_of = |c: usize| -> Vec<(u64, usize, f64)> {
+        report
+            .runs
+            .iter()
+            .filter(|r| r.candidate == c)
+            .filter_map(|r| r.val_rmse.map(|v| (r.seed, r.fold, v)))
+            .collect()
+    };
+    let means: Vec<f64> = (0..k)
+        .map(|c| {
+            let v: Vec<f64> = rmse_of(c).iter().map(|x| x.2).collect();
+            mean_sd_ci95(&v).0
+        })
+        .collect();
+    let best = (0..k)
+        .filter(|&c| means[c].is_finite())
+        .min_by(|&a, &b| means[a].total_cmp(&means[b]))
+        .ok_or("every run diverged")?;
+    let best_runs = rmse_of(best);
+    let mut summaries = Vec::with_capacity(k);
+    for c in 0..k {
+        let runs: Vec<&RunResult> = report.runs.iter().filter(|r| r.candidate == c).collect();
+        let ok: Vec<&&RunResult> = runs.iter().filter(|r| r.val_rmse.is_some()).collect();
+        let values: Vec<f64> = ok.iter().filter_map(|r| r.val_rmse).collect();
+        let (mean, sd, half) = mean_sd_ci95(&values);
+        let mut epochs: Vec<f64> = ok.iter().map(|r| r.best_epoch as f64).collect();
+        epochs.sort_by(f64::total_cmp);
+        let avg = |f: fn(&RunResult) -> f64| {
+            ok.iter().map(|r| f(r)).sum::<f64>() / ok.len().max(1) as f64
+        };
+        let versus_best = (c != best).then(|| {
+            let diffs: Vec<f64> = rmse_of(c)
+                .iter()
+                .filter_map(|&(s, f, v)| {
+                    best_runs
+                        .iter()
+                        .find(|b| b.0 == s && b.1 == f)
+                        .map(|b| v - b.2)
+                })
+                .collect();
+            let (m, _, h) = mean_sd_ci95(&diffs);
+            let w = wilcoxon(&diffs);
+            Paired {
+                n: diffs.len(),
+                mean_difference: m,
+                ci95: (m - h, m + h),
+                p_value: w.p_value,
+                exact: w.exact,
+            }
+        });
+        let verdict = verdict(c == best, versus_best.as_ref(), runs.len() - ok.len());
+        summaries.push(CandidateSummary {
+            label: report.plan.candidates[c].label.clone(),
+            runs: ok.len(),
+            diverged: runs.len() - ok.len(),
+            mean_rmse: mean,
+            sd_rmse: sd,
+            ci95: (mean - half, mean + half),
+            median_best_epoch: crate::metrics::quantile(&epochs, 0.5),
+            seconds_per_epoch: avg(|r| r.seconds_per_epoch),
+            dead_fraction: avg(|r| r.dead_fraction),
+            zero_fraction: avg(|r| r.zero_fraction),
+            versus_best,
+            verdict,
+        });
+    }
+    Ok(Comparison {
+        candidates: summaries,
+        best,
+        runs_per_candidate: report.plan.seeds * report.plan.fold_count(),
+    })
+}
+
+fn verdict(is_best: bool, paired: Option<&Paired>, diverged: usize) -> String {
+    let note = if diverged > 0 {
+        format!("; {diverged} run(s) diverged")
+    } else {
+        String::new()
+    };
+    if is_best {
+        return format!("best mean validation RMSE{note}");
+    }
+    let Some(p) = paired else {
+        return format!("no paired runs{note}");
+    };
+    if p.n < 2 {
+        return format!("too few paired runs to compare ({}){note}", p.n);
+    }
+    let significant = p.p_value < 0.05;
+    let interval_clear = p.ci95.0 > 0.0;
+    if significant && interval_clear {
+        format!(
+            "worse than the best by {:.4} (95% CI {:.4} to {:.4}, signed-rank p = {:.3}){note}",
+            p.mean_difference, p.ci95.0, p.ci95.1, p.p_value
+        )
+    } else if significant || interval_clear {
+        format!(
+            "borderline: signed-rank p = {:.3}, 95% CI of the difference {:.4} to {:.4}; add seeds \
+             or folds to decide{note}",
+            p.p_value, p.ci95.0, p.ci95.1
+        )
+    } else {
+        let small = if p.n <= 5 {
+            " (with 5 or fewer pairs the signed-rank test cannot reach p < 0.05: add seeds or folds)"
+        } else {
+            ""
+        };
+        format!(
+            "cannot be told apart from the best at {} paired runs (p = {:.3}){small}{note}",
+            p.n, p.p_value
+        )
+    }
+}
+
+/// The comparison as a Markdown table.
+pub fn markdown(c: &Comparison) -> String {
+    let mut s = String::from(
+        "| candidate | runs | diverged | validation RMSE (mean ± sd) | 95% CI | Δ vs best (95% CI) | p | median best epoch | ms / epoch | dead | zero | verdict |\n|---|---|---|---|---|---|---|---|---|---|---|---|\n",
+    );
+    for (i, x) in c.candidates.iter().enumerate() {
+        let (delta, p) = match &x.versus_best {
+            Some(v) => (
+                format!(
+                    "{:+.4} ({:+.4} to {:+.4})",
+                    v.mean_difference, v.ci95.0, v.ci95.1
+                ),
+                format!("{:.3}", v.p_value),
+            ),
+            None => ("—".to_string(), "—".to_string()),
+        };
+        let name = if i == c.best {
+            format!("**{}**", x.label)
+        } else {
+            x.label.clone()
+        };
+        s += &format!(
+            "| {name} | {} | {} | {:.4} ± {:.4} | {:.4} to {:.4} | {delta} | {p} | {:.0} | {:.2} | {:.1}% | {:.1}% | {} |\n",
+            x.runs,
+            x.diverged,
+            x.mean_rmse,
+            x.sd_rmse,
+            x.ci95.0,
+            x.ci95.1,
+            x.median_best_epoch,
+            1000.0 * x.seconds_per_epoch,
+            100.0 * x.dead_fraction,
+            100.0 * x.zero_fraction,
+            x.verdict
+        );
+    }
+    s
+}
