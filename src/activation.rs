@@ -303,7 +303,86 @@ impl Activation {
         matches!(self, Activation::RandomLeaky { .. })
     }
 
+    /// out[i] = f(x[i]) at inference. The variant is chosen once per call, not per element, so
+    /// the common rectifiers run as tight, vectorizable loops.
+    pub fn apply<F: Scalar>(&self, x: &[F], out: &mut [F]) {
+        fn each<F: Scalar>(x: &[F], out: &mut [F], f: impl Fn(F) -> F) {
+            for (o, &v) in out.iter_mut().zip(x) {
+                *o = f(v);
+            }
+        }
+        let zero = F::zero();
+        match *self {
+            Activation::Identity => out.copy_from_slice(x),
+            Activation::Relu => each(x, out, |v| if v > zero { v } else { zero }),
+            Activation::LeakyRelu { .. }
+            | Activation::Prelu { .. }
+            | Activation::RandomLeaky { .. } => {
+                let a = F::of(self.negative_slope());
+                each(x, out, |v| leaky(v, a))
+            }
+            Activation::CappedRelu { cap } => {
+                let c = F::of(cap);
+                each(x, out, |v| v.max(zero).min(c))
+            }
+            Activation::Elu { alpha } => {
+                let a = F::of(alpha);
+                each(x, out, |v| elu(v, a))
+            }
+            Activation::Selu => {
+                let (l, a) = (F::of(SELU_LAMBDA), F::of(SELU_ALPHA));
+                each(x, out, |v| l * elu(v, a))
+            }
+            Activation::Gelu => each(x, out, |v| v * normal_cdf(v)),
+            Activation::Silu { beta } => {
+                let b = F::of(beta);
+                each(x, out, |v| v * sigmoid(b * v))
+            }
+            Activation::Sigmoid => each(x, out, sigmoid),
+            _ => each(x, out, |v| self.value(v)),
+        }
+    }
+
+    /// out[i] = g[i]·f'(x[i]): the backward pass of [`Activation::apply`].
+    pub fn apply_derivative<F: Scalar>(&self, x: &[F], g: &[F], out: &mut [F]) {
+        fn each<F: Scalar>(x: &[F], g: &[F], out: &mut [F], f: impl Fn(F) -> F) {
+            for ((o, &v), &gv) in out.iter_mut().zip(x).zip(g) {
+                *o = gv * f(v);
+            }
+        }
+        let (zero, one) = (F::zero(), F::one());
+        match *self {
+            Activation::Identity => out.copy_from_slice(g),
+            Activation::Relu => {
+                for ((o, &v), &gv) in out.iter_mut().zip(x).zip(g) {
+                    *o = if v > zero { gv } else { zero };
+                }
+            }
+            Activation::LeakyRelu { .. }
+            | Activation::Prelu { .. }
+            | Activation::RandomLeaky { .. } => {
+                let a = F::of(self.negative_slope());
+                each(x, g, out, |v| leaky_derivative(v, a))
+            }
+            Activation::CappedRelu { cap } => {
+                let c = F::of(cap);
+                each(x, g, out, |v| if v > zero && v < c { one } else { zero })
+            }
+            Activation::Elu { alpha } => {
+                let a = F::of(alpha);
+                each(x, g, out, |v| elu_derivative(v, a))
+            }
+            Activation::Selu => {
+                let (l, a) = (F::of(SELU_LAMBDA), F::of(SELU_ALPHA));
+                each(x, g, out, |v| l * elu_derivative(v, a))
+            }
+            Activation::Gelu => each(x, g, out, |v| normal_cdf(v) + v * normal_pdf(v)),
+            _ => each(x, g, out, |v| self.derivative(v)),
+        }
+    }
+
     /// f(x) at inference.
+    #[inline]
     pub fn value<F: Scalar>(&self, x: F) -> F {
         let zero = F::zero();
         let one = F::one();
@@ -326,7 +405,7 @@ impl Activation {
                 if x > zero {
                     x
                 } else {
-                    a * (x / a).exp_m1()
+                    a * (x / a).kernel_exp_m1()
                 }
             }
             Activation::Gelu => x * normal_cdf(x),
@@ -353,6 +432,7 @@ impl Activation {
     }
 
     /// f'(x) at inference, with the kink conventions documented on each variant.
+    #[inline]
     pub fn derivative<F: Scalar>(&self, x: F) -> F {
         let zero = F::zero();
         let one = F::one();
@@ -374,7 +454,7 @@ impl Activation {
                 if x > zero {
                     one
                 } else {
-                    (x / F::of(alpha)).exp()
+                    (x / F::of(alpha)).kernel_exp()
                 }
             }
             Activation::Gelu => normal_cdf(x) + x * normal_pdf(x),
@@ -536,19 +616,22 @@ pub fn leaky_derivative<F: Scalar>(x: F, a: F) -> F {
 
 #[inline]
 fn elu<F: Scalar>(x: F, alpha: F) -> F {
+    // Both sides computed and one selected: keeps the kernel loops branch-free.
+    let negative = alpha * x.min(F::zero()).kernel_exp_m1();
     if x > F::zero() {
         x
     } else {
-        alpha * x.exp_m1()
+        negative
     }
 }
 
 #[inline]
 fn elu_derivative<F: Scalar>(x: F, alpha: F) -> F {
+    let negative = alpha * x.min(F::zero()).kernel_exp();
     if x > F::zero() {
         F::one()
     } else {
-        alpha * x.exp()
+        negative
     }
 }
 
@@ -572,7 +655,7 @@ pub fn softplus<F: Scalar>(x: F) -> F {
 /// Standard normal CDF Φ(x) = erfc(−x/√2)/2, accurate in both tails.
 #[inline]
 pub fn normal_cdf<F: Scalar>(x: F) -> F {
-    F::of(0.5) * (-x * F::of(std::f64::consts::FRAC_1_SQRT_2)).erfc()
+    F::of(0.5) * (-x * F::of(std::f64::consts::FRAC_1_SQRT_2)).kernel_erfc()
 }
 
 /// Standard normal density φ(x).
@@ -580,7 +663,7 @@ pub fn normal_cdf<F: Scalar>(x: F) -> F {
 pub fn normal_pdf<F: Scalar>(x: F) -> F {
     let inv_sqrt_2pi =
         F::of(0.5 * std::f64::consts::FRAC_2_SQRT_PI * std::f64::consts::FRAC_1_SQRT_2);
-    inv_sqrt_2pi * (F::of(-0.5) * x * x).exp()
+    inv_sqrt_2pi * (F::of(-0.5) * x * x).kernel_exp()
 }
 
 #[inline]

@@ -33,6 +33,7 @@ pub mod data;
 pub mod error;
 pub mod gradcheck;
 pub mod init;
+pub mod kernels;
 pub mod layer;
 pub mod loss;
 pub mod metrics;

@@ -252,3 +252,40 @@ fn default_initializers_follow_the_family() {
     assert_eq!(Activation::Tanh.default_init(), Init::GLOROT);
     assert_eq!(Activation::Sigmoid.default_init(), Init::GLOROT);
 }
+
+#[test]
+fn f32_kernels_stay_close_to_the_f64_reference() {
+    // f32 uses vectorizable approximations of exp, exp − 1 and erfc (see Scalar); f64 uses libm.
+    use relume::Scalar;
+    let mut worst_exp = 0.0_f64;
+    for i in 0..=17_500 {
+        let x = -87.0 + i as f64 * 0.01;
+        let (ours, exact) = ((x as f32).kernel_exp() as f64, (x as f32 as f64).exp());
+        worst_exp = worst_exp.max((ours - exact).abs() / exact);
+    }
+    println!("f32 kernel exp: worst relative error {worst_exp:.2e}");
+    assert!(worst_exp <= 3e-7);
+    for act in [
+        Activation::Gelu,
+        Activation::ELU,
+        Activation::Selu,
+        Activation::CELU,
+        Activation::SILU,
+    ] {
+        let mut worst = 0.0_f64;
+        for i in 0..=4000 {
+            let x = -20.0 + i as f64 * 0.01;
+            let xf = x as f32;
+            for (ours, exact) in [
+                (act.value(xf) as f64, act.value(xf as f64)),
+                (act.derivative(xf) as f64, act.derivative(xf as f64)),
+            ] {
+                worst = worst.max((ours - exact).abs() / (1.0 + exact.abs()));
+            }
+        }
+        println!("{act} in f32: worst error {worst:.2e}");
+        assert!(worst <= 1e-6, "{act}: {worst:e}");
+    }
+    assert!(f32::NAN.kernel_exp().is_nan());
+    assert_eq!((-1e4_f32).kernel_exp_m1(), -1.0);
+}

@@ -4,8 +4,8 @@ use super::{check_width, Layer, LayerSpec, Pass, Role, TensorSpec};
 use crate::buffer::Buffer;
 use crate::error::ConfigError;
 use crate::init::{Init, Rng};
+use crate::kernels::matmul;
 use crate::scalar::Scalar;
-use ndarray::linalg::general_mat_mul;
 use ndarray::{ArrayView1, ArrayView2, ArrayViewMut1, ArrayViewMut2, Axis};
 
 /// Fully connected layer: W is inputs × outputs (row-major), then b (outputs).
@@ -106,7 +106,7 @@ impl<F: Scalar> Layer<F> for Affine<F> {
         out.rows_mut()
             .into_iter()
             .for_each(|mut row| row.assign(&b));
-        general_mat_mul(F::one(), &input, &w, F::one(), &mut out);
+        matmul(input, w, &mut out, true);
     }
 
     fn output(&self) -> ArrayView2<'_, F> {
@@ -126,18 +126,21 @@ impl<F: Scalar> Layer<F> for Affine<F> {
     ) -> ArrayView2<'_, F> {
         let (w, _) = self.split(params);
         let (mut dw, mut db) = self.split_mut(grads);
-        general_mat_mul(F::one(), &input.t(), &grad_out, F::one(), &mut dw);
-        for row in grad_out.axis_iter(Axis(0)) {
-            db += &row;
+        matmul(input.t(), grad_out, &mut dw, true);
+        match (grad_out.as_slice(), db.as_slice_mut()) {
+            (Some(g), Some(db)) => {
+                for row in g.chunks_exact(self.outputs) {
+                    db.iter_mut().zip(row).for_each(|(d, &v)| *d += v);
+                }
+            }
+            _ => {
+                for row in grad_out.axis_iter(Axis(0)) {
+                    db += &row;
+                }
+            }
         }
         self.grad_in.reshape(grad_out.nrows(), self.inputs);
-        general_mat_mul(
-            F::one(),
-            &grad_out,
-            &w.t(),
-            F::zero(),
-            &mut self.grad_in.view_mut(),
-        );
+        matmul(grad_out, w.t(), &mut self.grad_in.view_mut(), false);
         self.grad_in.view()
     }
 }

@@ -92,6 +92,8 @@ impl<F: Scalar> Layer<F> for Pointwise<F> {
                 .and(&input)
                 .and(&self.slopes.view())
                 .for_each(|y, &x, &a| *y = leaky(x, a));
+        } else if let Some(x) = input.as_slice() {
+            self.activation.apply(x, self.out.as_mut_slice());
         } else {
             let act = self.activation;
             Zip::from(&mut self.out.view_mut())
@@ -122,6 +124,9 @@ impl<F: Scalar> Layer<F> for Pointwise<F> {
                 .and(&grad_out)
                 .and(&self.slopes.view())
                 .for_each(|d, &x, &g, &a| *d = g * leaky_derivative(x, a));
+        } else if let (Some(x), Some(g)) = (input.as_slice(), grad_out.as_slice()) {
+            self.activation
+                .apply_derivative(x, g, self.grad_in.as_mut_slice());
         } else {
             let act = self.activation;
             Zip::from(&mut self.grad_in.view_mut())

@@ -72,22 +72,31 @@ impl<F: Scalar> Optimizer<F> for Adam<F> {
         let (b1, b2, one) = (F::of(self.beta1), F::of(self.beta2), F::one());
         let (inv_c1, inv_c2, eps) = (F::of(1.0 / c1), F::of(1.0 / c2), F::of(self.eps));
         let lr = F::of(self.lr);
-        let shrink = F::of(1.0 - self.lr * self.decay);
-        for i in 0..params.len() {
-            let g = grads[i];
-            let m = b1 * self.m[i] + (one - b1) * g;
-            let mut v = b2 * self.v[i] + (one - b2) * g * g;
-            self.m[i] = m;
-            self.v[i] = v;
-            if self.amsgrad {
-                v = v.max(self.v_max[i]);
-                self.v_max[i] = v;
+        if self.decay > 0.0 {
+            // Decoupled decay first, on the entries the mask selects (θ·(1 − lr·λ)).
+            let shrink = F::of(1.0 - self.lr * self.decay);
+            for (i, p) in params.iter_mut().enumerate() {
+                if self.decay_mask.get(i).copied().unwrap_or(true) {
+                    *p *= shrink;
+                }
             }
-            let p = &mut params[i];
-            if self.decay > 0.0 && self.decay_mask.get(i).copied().unwrap_or(true) {
-                *p *= shrink;
+        }
+        // Moments, then the step; split into simple loops so they vectorize.
+        for ((m, v), &g) in self.m.iter_mut().zip(self.v.iter_mut()).zip(grads) {
+            *m = b1 * *m + (one - b1) * g;
+            *v = b2 * *v + (one - b2) * g * g;
+        }
+        let second = if self.amsgrad {
+            for (vm, &v) in self.v_max.iter_mut().zip(&self.v) {
+                *vm = vm.max(v);
             }
-            *p -= lr * (m * inv_c1) / ((v * inv_c2).sqrt() + eps);
+            &self.v_max
+        } else {
+            &self.v
+        };
+        let step = lr * inv_c1;
+        for ((p, &m), &v) in params.iter_mut().zip(&self.m).zip(second) {
+            *p -= step * m / ((v * inv_c2).sqrt() + eps);
         }
     }
 

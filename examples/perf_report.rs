@@ -1,0 +1,236 @@
+//! Performance report: one line per case,
+//! `case=NAME step_us=MEDIAN floor_us=MEDIAN ratio=R allocs_per_step=N`,
+//! where the floor is the time of the matrix products the step must do (same shapes, same
+//! GEMM library, same threads) or, for the activation case, a memcpy of the same buffer.
+//! Allocations are counted by a counting global allocator after warm-up.
+//!
+//! Run: `cargo run --release --example perf_report`. Times are medians over repeated batches
+//! of iterations measured in this run, so the ratios compare like with like on a noisy machine.
+
+use ndarray::{Array2, ArrayView2};
+use relume::data::{EncoderSpec, ReadOptions, Table};
+use relume::kernels::matmul;
+use relume::layer::{Layer, Pass, Pointwise};
+use relume::monitor::MonitorConfig;
+use relume::predict::Cell;
+use relume::{Activation, Adam, Loss, Model, NetworkPlan, Optimizer, Predictor, Recipe};
+use std::alloc::{GlobalAlloc, Layout, System};
+use std::hint::black_box;
+use std::sync::atomic::{AtomicUsize, Ordering};
+use std::time::Instant;
+
+struct Counting;
+
+static ALLOCATIONS: AtomicUsize = AtomicUsize::new(0);
+
+// SAFETY: forwards every call to the system allocator unchanged; it only counts.
+unsafe impl GlobalAlloc for Counting {
+    unsafe fn alloc(&self, layout: Layout) -> *mut u8 {
+        ALLOCATIONS.fetch_add(1, Ordering::Relaxed);
+        // SAFETY: same contract as our caller's.
+        unsafe { System.alloc(layout) }
+    }
+    unsafe fn dealloc(&self, ptr: *mut u8, layout: Layout) {
+        // SAFETY: `ptr` was allocated by `System` with `layout`.
+        unsafe { System.dealloc(ptr, layout) }
+    }
+    unsafe fn realloc(&self, ptr: *mut u8, layout: Layout, size: usize) -> *mut u8 {
+        ALLOCATIONS.fetch_add(1, Ordering::Relaxed);
+        // SAFETY: same contract as our caller's.
+        unsafe { System.realloc(ptr, layout, size) }
+    }
+}
+
+#[global_allocator]
+static GLOBAL: Counting = Counting;
+
+/// Median microseconds per call of `f`, over `reps` batches of `iters` calls, after warm-up;
+/// and the allocations per call during the timed batches.
+fn measure(iters: usize, reps: usize, mut f: impl FnMut()) -> (f64, f64) {
+    for _ in 0..iters.max(3) {
+        f();
+    }
+    let before = ALLOCATIONS.load(Ordering::Relaxed);
+    let mut times = Vec::with_capacity(reps);
+    for _ in 0..reps {
+        let t = Instant::now();
+        for _ in 0..iters {
+            f();
+        }
+        times.push(t.elapsed().as_secs_f64() * 1e6 / iters as f64);
+    }
+    let allocs = (ALLOCATIONS.load(Ordering::Relaxed) - before) as f64 / (iters * reps) as f64;
+    times.sort_by(f64::total_cmp);
+    (times[reps / 2], allocs)
+}
+
+fn inputs(rows: usize, cols: usize) -> Array2<f32> {
+    Array2::from_shape_fn((rows, cols), |(i, j)| {
+        (((i * 31 + j * 17) % 97) as f32 / 48.5) - 1.0
+    })
+}
+
+fn line(case: &str, step: f64, floor: f64, allocs: f64) {
+    println!(
+        "case={case} step_us={step:.2} floor_us={floor:.2} ratio={:.3} allocs_per_step={allocs:.0}",
+        step / floor
+    );
+}
+
+/// Time of the GEMMs one training step of a dense stack must do: per affine layer X·W, and in
+/// backward Xᵀ·G, plus G·Wᵀ for every layer but the first.
+fn gemm_floor(widths: &[usize], batch: usize, iters: usize) -> f64 {
+    let layers: Vec<(
+        Array2<f32>,
+        Array2<f32>,
+        Array2<f32>,
+        Array2<f32>,
+        Array2<f32>,
+    )> = widths
+        .windows(2)
+        .map(|w| {
+            (
+                inputs(batch, w[0]),          // X
+                inputs(w[0], w[1]),           // W
+                Array2::zeros((batch, w[1])), // Y
+                Array2::zeros((w[0], w[1])),  // dW
+                Array2::zeros((batch, w[0])), // dX
+            )
+        })
+        .collect();
+    let mut layers = layers;
+    let grads: Vec<Array2<f32>> = widths[1..].iter().map(|&w| inputs(batch, w)).collect();
+    let (t, _) = measure(iters, 15, || {
+        for (k, (x, w, y, dw, dx)) in layers.iter_mut().enumerate() {
+            matmul(x.view(), w.view(), &mut y.view_mut(), false);
+            matmul(x.t(), grads[k].view(), &mut dw.view_mut(), false);
+            if k > 0 {
+                matmul(grads[k].view(), w.t(), &mut dx.view_mut(), false);
+            }
+        }
+        black_box(&layers);
+    });
+    t
+}
+
+fn training_step(case: &str, widths: &[usize], batch: usize, iters: usize) -> f64 {
+    let mut net = NetworkPlan::new(widths[0], &widths[1..widths.len() - 1], Activation::Relu)
+        .build::<f32>(1)
+        .expect("valid plan");
+    let x = inputs(batch, widths[0]);
+    let y = inputs(batch, 1);
+    let mut grad = Array2::<f32>::zeros((batch, 1));
+    let mut adam = Adam::new(1e-3);
+    let (step, allocs) = measure(iters, 15, || {
+        net.zero_grads();
+        let out = net.forward(x.view(), Pass::Train).expect("shapes");
+        Loss::Mse
+            .gradient_into(out, y.view(), grad.view_mut())
+            .expect("shapes");
+        net.backward(grad.view()).expect("shapes");
+        let (p, g) = net.params_and_grads();
+        adam.step(p, g);
+    });
+    let floor = gemm_floor(widths, batch, iters);
+    line(case, step, floor, allocs);
+    step
+}
+
+fn row_predict() {
+    let mut csv = String::from("a,b,c,d,e,f,g,h,i,j,y\n");
+    for r in 0..300 {
+        let v: Vec<f64> = (0..10)
+            .map(|j| ((r * 7 + j * 13) % 23) as f64 / 23.0)
+            .collect();
+        let y: f64 = v.iter().sum();
+        let cells: Vec<String> = v.iter().map(|x| x.to_string()).collect();
+        csv += &format!("{},{y}\n", cells.join(","));
+    }
+    let table = Table::read(csv.as_bytes(), "perf", &ReadOptions::default()).expect("table");
+    let spec = EncoderSpec {
+        target: "y".into(),
+        ..EncoderSpec::default()
+    };
+    let recipe = Recipe {
+        hidden: vec![64, 64],
+        ..Recipe::default()
+    }
+    .with_config(relume::TrainConfig {
+        epochs: 2,
+        ..relume::TrainConfig::default()
+    });
+    let (model, _) = Model::fit(&table, &spec, &recipe, MonitorConfig::default()).expect("fit");
+    let predictor = Predictor::new(&model);
+    let mut scratch = predictor.scratch();
+    let row: Vec<Cell> = (0..10).map(|j| Cell::Number(0.1 * j as f64)).collect();
+    let (step, allocs) = measure(20_000, 15, || {
+        black_box(
+            predictor
+                .predict_row(black_box(&row), &mut scratch)
+                .expect("row"),
+        );
+    });
+    // Floor: the three row × matrix products through the same GEMM library.
+    let shapes = [(10, 64), (64, 64), (64, 1)];
+    let mats: Vec<(Array2<f32>, Array2<f32>, Array2<f32>)> = shapes
+        .iter()
+        .map(|&(i, o)| (inputs(1, i), inputs(i, o), Array2::zeros((1, o))))
+        .collect();
+    let mut mats = mats;
+    let (floor, _) = measure(20_000, 15, || {
+        for (x, w, y) in mats.iter_mut() {
+            matmul(x.view(), w.view(), &mut y.view_mut(), false);
+        }
+        black_box(&mats);
+    });
+    line("row_predict", step, floor, allocs);
+}
+
+fn activation_forward(act: Activation, x: ArrayView2<'_, f32>) -> (f64, f64) {
+    let mut layer = Pointwise::<f32>::new(x.ncols(), act).expect("layer");
+    measure(20, 15, || {
+        layer.forward(&[], x, Pass::Infer);
+        black_box(layer.output());
+    })
+}
+
+fn main() {
+    println!(
+        "# relume perf report ({} logical CPUs)",
+        std::thread::available_parallelism().map_or(1, |n| n.get())
+    );
+    training_step("tabular_b32", &[10, 64, 64, 1], 32, 2000);
+    let one = training_step("wide_b256", &[256, 256, 256, 256, 1], 256, 20);
+    let big_one = {
+        // The same network at batch 1024 on one thread, for the speed-up line below.
+        let mut net = NetworkPlan::new(256, &[256, 256, 256], Activation::Relu)
+            .build::<f32>(1)
+            .expect("plan");
+        let x = inputs(1024, 256);
+        measure(5, 9, || {
+            black_box(net.forward(x.view(), Pass::Train).expect("shapes"));
+        })
+        .0
+    };
+    let _ = (one, big_one);
+    training_step("wide_b1024_2t", &[256, 256, 256, 256, 1], 1024, 5);
+    row_predict();
+    let x = inputs(1024, 1024);
+    let (relu, allocs) = activation_forward(Activation::Relu, x.view());
+    let mut copy = Array2::<f32>::zeros((1024, 1024));
+    let (floor, _) = measure(20, 15, || {
+        copy.as_slice_mut()
+            .expect("contiguous")
+            .copy_from_slice(x.as_slice().expect("contiguous"));
+        black_box(&copy);
+    });
+    line("relu_fwd", relu, floor, allocs);
+    for act in [Activation::Gelu, Activation::ELU, Activation::Selu] {
+        let (t, _) = activation_forward(act, x.view());
+        println!(
+            "activation={} fwd_us={t:.1} relative_to_relu={:.2}",
+            act.name(),
+            t / relu
+        );
+    }
+}
