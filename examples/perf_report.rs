@@ -79,14 +79,17 @@ fn line(case: &str, step: f64, floor: f64, allocs: f64) {
 
 /// Time of the GEMMs one training step of a dense stack must do: per affine layer X·W, and in
 /// backward Xᵀ·G, plus G·Wᵀ for every layer but the first.
+/// One affine layer's operands: X, W, Y = X·W, dW, dX.
+type Operands = (
+    Array2<f32>,
+    Array2<f32>,
+    Array2<f32>,
+    Array2<f32>,
+    Array2<f32>,
+);
+
 fn gemm_floor(widths: &[usize], batch: usize, iters: usize) -> f64 {
-    let layers: Vec<(
-        Array2<f32>,
-        Array2<f32>,
-        Array2<f32>,
-        Array2<f32>,
-        Array2<f32>,
-    )> = widths
+    let layers: Vec<Operands> = widths
         .windows(2)
         .map(|w| {
             (

@@ -122,10 +122,54 @@ impl Model {
         monitor: MonitorConfig,
         observers: &mut [&mut dyn Observer<f32>],
     ) -> Result<(Model, RunReport), FitError> {
+        let (encoder, x, y, val_rows) = Model::encode(table, spec, recipe)?;
+        Model::fit_encoded(encoder, x, y, val_rows, recipe, monitor, observers)
+    }
+
+    /// [`Model::fit_observed`] that takes the table and frees it as soon as it is encoded, so
+    /// a large table is not held in memory while the network trains.
+    pub fn fit_consuming(
+        table: Table,
+        spec: &EncoderSpec,
+        recipe: &Recipe,
+        monitor: MonitorConfig,
+        observers: &mut [&mut dyn Observer<f32>],
+    ) -> Result<(Model, RunReport), FitError> {
+        let (encoder, x, y, val_rows) = Model::encode(&table, spec, recipe)?;
+        drop(table);
+        Model::fit_encoded(encoder, x, y, val_rows, recipe, monitor, observers)
+    }
+
+    /// Encoder fitted on the recipe's training rows, the encoded table and the validation rows.
+    fn encode(
+        table: &Table,
+        spec: &EncoderSpec,
+        recipe: &Recipe,
+    ) -> Result<
+        (
+            Encoder,
+            ndarray::Array2<f32>,
+            ndarray::Array2<f32>,
+            Vec<usize>,
+        ),
+        FitError,
+    > {
         let (train_rows, val_rows) = recipe.split(table.rows())?;
         let encoder = Encoder::fit(table, spec, &train_rows)?;
-        let x = encoder.encode_inputs(table, None)?.mapv(|v| v as f32);
+        let x = encoder.encode_inputs::<f32>(table, None)?;
         let y = encoder.encode_target(table, None)?.mapv(|v| v as f32);
+        Ok((encoder, x, y, val_rows))
+    }
+
+    fn fit_encoded(
+        encoder: Encoder,
+        x: ndarray::Array2<f32>,
+        y: ndarray::Array2<f32>,
+        val_rows: Vec<usize>,
+        recipe: &Recipe,
+        monitor: MonitorConfig,
+        observers: &mut [&mut dyn Observer<f32>],
+    ) -> Result<(Model, RunReport), FitError> {
         let (mut trained, report) = recipe.fit_reported(x.view(), y.view(), monitor, observers)?;
         let validation = (!val_rows.is_empty()).then(|| {
             let xv = x.select(ndarray::Axis(0), &val_rows);

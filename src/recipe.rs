@@ -328,18 +328,19 @@ impl Recipe {
         // Hold out the validation rows here so the scaling is fitted on training rows only.
         let (train_idx, val_idx) = self.split(x.nrows())?;
         let rows = |m: ArrayView2<'_, F>, idx: &[usize]| m.select(Axis(0), idx);
-        let (xt, yt) = (rows(x, &train_idx), rows(y, &train_idx));
+        let (mut xs, mut ys) = (rows(x, &train_idx), rows(y, &train_idx));
         let inputs = if self.scale_inputs {
-            Standardizer::fit(xt.view())
+            Standardizer::fit(xs.view())
         } else {
             Standardizer::identity(x.ncols())
         };
         let target = if self.scale_target {
-            Standardizer::fit(yt.view())
+            Standardizer::fit(ys.view())
         } else {
             Standardizer::identity(y.ncols())
         };
-        let (xs, ys) = (inputs.apply(xt.view()), target.apply(yt.view()));
+        inputs.apply_in_place(&mut xs);
+        target.apply_in_place(&mut ys);
         let val = (!val_idx.is_empty()).then(|| {
             (
                 inputs.apply(rows(x, &val_idx).view()),

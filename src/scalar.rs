@@ -103,6 +103,7 @@ impl Scalar for f32 {
 #[inline]
 fn exp_f32(x: f32) -> f32 {
     // max/min (not clamp) so that a NaN input becomes a number here; it is put back at the end.
+    #[allow(clippy::manual_clamp)]
     let c = x.max(-87.3).min(88.3);
     // Round to nearest by adding and subtracting 1.5·2²³: plain SSE2, so the loop vectorizes
     // on any x86-64 (a `round` call would not).

@@ -50,13 +50,15 @@ impl Standardizer {
     /// (v − mean)/sd for every column.
     pub fn apply<F: Scalar>(&self, x: ArrayView2<'_, F>) -> Array2<F> {
         let mut out = x.to_owned();
-        for (mut col, (m, s)) in out
-            .axis_iter_mut(Axis(1))
-            .zip(self.mean.iter().zip(&self.sd))
-        {
+        self.apply_in_place(&mut out);
+        out
+    }
+
+    /// [`Standardizer::apply`] without a copy.
+    pub fn apply_in_place<F: Scalar>(&self, x: &mut Array2<F>) {
+        for (mut col, (m, s)) in x.axis_iter_mut(Axis(1)).zip(self.mean.iter().zip(&self.sd)) {
             col.mapv_inplace(|v| F::of((v.as_f64() - m) / s));
         }
-        out
     }
 
     /// mean + sd·z for every column: the inverse of [`Standardizer::apply`].

@@ -10,7 +10,7 @@ use crate::objective::Objective;
 use crate::optim::{Lbfgs, LbfgsOutcome, LbfgsProblem, Optimizer, OptimizerChoice};
 use crate::scalar::Scalar;
 use crate::schedule::Schedule;
-use ndarray::{Array2, ArrayView2, Axis};
+use ndarray::{Array2, ArrayView2, Axis, CowArray, Ix2};
 use rand::seq::SliceRandom;
 use serde::{Deserialize, Serialize};
 use std::ops::Range;
@@ -316,33 +316,34 @@ fn check_data<F: Scalar>(
     Ok(())
 }
 
-/// Training and validation rows, as owned copies.
-struct Split<F> {
-    x: Array2<F>,
-    y: Array2<F>,
-    val: Option<(Array2<F>, Array2<F>)>,
+/// Training and validation rows: the caller's arrays where they can be used as they are,
+/// copies only when the trainer makes the split itself.
+struct Split<'d, F> {
+    x: CowArray<'d, F, Ix2>,
+    y: CowArray<'d, F, Ix2>,
+    val: Option<(CowArray<'d, F, Ix2>, CowArray<'d, F, Ix2>)>,
 }
 
-impl<F: Scalar> Split<F> {
+impl<'d, F: Scalar> Split<'d, F> {
     fn new(
-        x: ArrayView2<'_, F>,
-        y: ArrayView2<'_, F>,
-        validation: Option<(ArrayView2<'_, F>, ArrayView2<'_, F>)>,
+        x: ArrayView2<'d, F>,
+        y: ArrayView2<'d, F>,
+        validation: Option<(ArrayView2<'d, F>, ArrayView2<'d, F>)>,
         config: &TrainConfig,
     ) -> Result<Self, TrainError> {
         if let Some((vx, vy)) = validation {
             return Ok(Split {
-                x: x.to_owned(),
-                y: y.to_owned(),
-                val: Some((vx.to_owned(), vy.to_owned())),
+                x: x.into(),
+                y: y.into(),
+                val: Some((vx.into(), vy.into())),
             });
         }
         let rows = x.nrows();
         let n_val = (rows as f64 * config.val_frac).round() as usize;
         if n_val == 0 {
             return Ok(Split {
-                x: x.to_owned(),
-                y: y.to_owned(),
+                x: x.into(),
+                y: y.into(),
                 val: None,
             });
         }
@@ -354,9 +355,12 @@ impl<F: Scalar> Split<F> {
         }
         let (train_idx, val_idx) = holdout_indices(rows, n_val, config.seed);
         Ok(Split {
-            x: x.select(Axis(0), &train_idx),
-            y: y.select(Axis(0), &train_idx),
-            val: Some((x.select(Axis(0), &val_idx), y.select(Axis(0), &val_idx))),
+            x: x.select(Axis(0), &train_idx).into(),
+            y: y.select(Axis(0), &train_idx).into(),
+            val: Some((
+                x.select(Axis(0), &val_idx).into(),
+                y.select(Axis(0), &val_idx).into(),
+            )),
         })
     }
 }
@@ -385,7 +389,7 @@ struct Best<F> {
 
 /// State shared by the mini-batch and full-batch loops.
 struct Run<'a, F: Scalar> {
-    split: &'a Split<F>,
+    split: &'a Split<'a, F>,
     config: &'a TrainConfig,
     ranges: Vec<Range<usize>>,
     history: Vec<EpochRecord>,
@@ -404,7 +408,7 @@ enum EpochEnd {
 }
 
 impl<'a, F: Scalar> Run<'a, F> {
-    fn new(net: &Network<F>, split: &'a Split<F>, config: &'a TrainConfig) -> Self {
+    fn new(net: &Network<F>, split: &'a Split<'a, F>, config: &'a TrainConfig) -> Self {
         Run {
             split,
             config,

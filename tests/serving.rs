@@ -93,7 +93,7 @@ fn empty_cells_are_errors_unless_imputation_is_on() {
             ..EncoderSpec::default()
         };
         let enc = Encoder::fit(&table, &spec, &all).unwrap();
-        let x = enc.encode_inputs(&table, None).unwrap();
+        let x = enc.encode_inputs::<f64>(&table, None).unwrap();
         assert_eq!(x[(1, 0)], fill, "{how:?}");
         // The empty text cell takes the most frequent level ("x"), one-hot.
         assert_eq!(x.row(2).to_vec(), vec![3.0, 1.0, 0.0]);
@@ -109,9 +109,12 @@ fn categories_come_from_training_rows_only_and_unseen_ones_are_refused() {
     };
     let enc = Encoder::fit(&table, &spec, &[0, 1, 3]).unwrap();
     assert_eq!(enc.input_names(), vec!["c=blue", "c=red"]);
-    let err = enc.encode_inputs(&table, None).unwrap_err().to_string();
+    let err = enc
+        .encode_inputs::<f64>(&table, None)
+        .unwrap_err()
+        .to_string();
     assert!(err.contains("line 4") && err.contains("'green'"), "{err}");
-    let x = enc.encode_inputs(&table, Some(&[0, 1])).unwrap();
+    let x = enc.encode_inputs::<f64>(&table, Some(&[0, 1])).unwrap();
     assert_eq!(x.row(0).to_vec(), vec![0.0, 1.0]);
     let err = Encoder::fit(
         &table,

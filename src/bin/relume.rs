@@ -410,8 +410,8 @@ fn train(a: TrainArgs) -> Result<(), Failure> {
         100.0 * config.val_frac
     );
     let mut progress = Progress::new(config.epochs);
-    let (model, mut report) = Model::fit_observed(
-        &table,
+    let (model, mut report) = Model::fit_consuming(
+        table,
         &spec,
         &recipe,
         MonitorConfig::default(),

@@ -3,6 +3,7 @@
 //! applied after encoding by the recipe's [`crate::Standardizer`], also fitted on training rows.)
 
 use super::{ColumnData, DataError, Table};
+use crate::scalar::Scalar;
 use ndarray::Array2;
 use serde::{Deserialize, Serialize};
 use std::collections::HashMap;
@@ -164,11 +165,11 @@ impl Encoder {
 
     /// Encodes the feature columns of `rows` (all rows if None). An empty cell without
     /// imputation, or a level not seen in training, is an error naming line and column.
-    pub fn encode_inputs(
+    pub fn encode_inputs<F: Scalar>(
         &self,
         table: &Table,
         rows: Option<&[usize]>,
-    ) -> Result<Array2<f64>, DataError> {
+    ) -> Result<Array2<F>, DataError> {
         let all: Vec<usize>;
         let rows = match rows {
             Some(r) => r,
@@ -185,11 +186,11 @@ impl Encoder {
                 (FeatureEncoding::Number { name, fill, .. }, ColumnData::Number(values)) => {
                     for (k, &r) in rows.iter().enumerate() {
                         let v = values[r];
-                        out[(k, offset)] = if v.is_nan() {
+                        out[(k, offset)] = F::of(if v.is_nan() {
                             fill.ok_or_else(|| missing(table, r, name))?
                         } else {
                             v
-                        };
+                        });
                     }
                 }
                 (FeatureEncoding::Category { name, levels, fill }, ColumnData::Text(values)) => {
@@ -214,7 +215,7 @@ impl Encoder {
                                 ),
                             )
                         })?;
-                        out[(k, offset + level)] = 1.0;
+                        out[(k, offset + level)] = F::one();
                     }
                 }
                 _ => {

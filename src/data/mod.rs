@@ -216,6 +216,10 @@ impl Table {
         if lines.is_empty() {
             return Err(table_error("no data rows after the header".to_string()));
         }
+        // Give back the slack of the growing vectors.
+        numbers.iter_mut().for_each(|v| v.shrink_to_fit());
+        texts.iter_mut().for_each(|v| v.shrink_to_fit());
+        lines.shrink_to_fit();
         let columns = headers
             .iter()
             .enumerate()
