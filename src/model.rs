@@ -86,6 +86,14 @@ pub enum FitError {
     Train(#[from] TrainError),
 }
 
+/// An encoded table: the encoder, inputs, target and the validation rows.
+type Encoded = (
+    Encoder,
+    ndarray::Array2<f32>,
+    ndarray::Array2<f32>,
+    Vec<usize>,
+);
+
 /// The on-disk layout.
 #[derive(Serialize, Deserialize)]
 struct ModelFile {
@@ -141,19 +149,7 @@ impl Model {
     }
 
     /// Encoder fitted on the recipe's training rows, the encoded table and the validation rows.
-    fn encode(
-        table: &Table,
-        spec: &EncoderSpec,
-        recipe: &Recipe,
-    ) -> Result<
-        (
-            Encoder,
-            ndarray::Array2<f32>,
-            ndarray::Array2<f32>,
-            Vec<usize>,
-        ),
-        FitError,
-    > {
+    fn encode(table: &Table, spec: &EncoderSpec, recipe: &Recipe) -> Result<Encoded, FitError> {
         let (train_rows, val_rows) = recipe.split(table.rows())?;
         let encoder = Encoder::fit(table, spec, &train_rows)?;
         let x = encoder.encode_inputs::<f32>(table, None)?;
