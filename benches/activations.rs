@@ -37,6 +37,15 @@ fn bench_activations(c: &mut Criterion) {
                 }
             })
         });
+        // The slice kernels the layers use (the variant chosen once per call).
+        group.bench_function(format!("{}_forward_kernel", act.name()), |b| {
+            b.iter(|| act.apply(black_box(&x), &mut y))
+        });
+        let g = vec![1.0_f32; N];
+        let mut d = vec![0.0_f32; N];
+        group.bench_function(format!("{}_backward_kernel", act.name()), |b| {
+            b.iter(|| act.apply_derivative(black_box(&x), &g, &mut d))
+        });
     }
     group.finish();
 }

@@ -130,7 +130,7 @@ fn training_step(case: &str, widths: &[usize], batch: usize, iters: usize) -> f6
         Loss::Mse
             .gradient_into(out, y.view(), grad.view_mut())
             .expect("shapes");
-        net.backward(grad.view()).expect("shapes");
+        net.backward_params(grad.view()).expect("shapes");
         let (p, g) = net.params_and_grads();
         adam.step(p, g);
     });

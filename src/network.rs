@@ -243,6 +243,24 @@ impl<F: Scalar> Network<F> {
         &mut self,
         grad_out: ArrayView2<'_, F>,
     ) -> Result<ArrayView2<'_, F>, ShapeError> {
+        self.backpropagate(grad_out, true)?;
+        Ok(match self.layers.first() {
+            Some(first) => first.input_grad(),
+            None => self.top_grad.view(),
+        })
+    }
+
+    /// [`Network::backward`] without the gradient with respect to the network input, which
+    /// training does not need: the first layer skips that product.
+    pub fn backward_params(&mut self, grad_out: ArrayView2<'_, F>) -> Result<(), ShapeError> {
+        self.backpropagate(grad_out, false)
+    }
+
+    fn backpropagate(
+        &mut self,
+        grad_out: ArrayView2<'_, F>,
+        input_grad: bool,
+    ) -> Result<(), ShapeError> {
         let rows = self.forward_rows.ok_or_else(|| {
             ShapeError::new("backward before any forward pass", (0, 0), grad_out.dim())
         })?;
@@ -263,17 +281,14 @@ impl<F: Scalar> Network<F> {
                 None => self.top_grad.view(),
             };
             let span = self.spans[i].clone();
-            layer.backward(
-                &self.params[span.clone()],
-                &mut self.grads[span],
-                input,
-                grad,
-            );
+            let (params, grads) = (&self.params[span.clone()], &mut self.grads[span]);
+            if i == 0 && !input_grad {
+                layer.backward_params(params, grads, input, grad);
+            } else {
+                layer.backward(params, grads, input, grad);
+            }
         }
-        Ok(match self.layers.first() {
-            Some(first) => first.input_grad(),
-            None => self.top_grad.view(),
-        })
+        Ok(())
     }
 
     /// Inference on `x`, returning an owned array.

@@ -665,7 +665,7 @@ impl<'a, F: Scalar> Run<'a, F> {
             .loss
             .gradient_into(net.output(), y, top.view_mut())
             .map_err(|e| e.to_string())?;
-        net.backward(top.view()).map_err(|e| e.to_string())?;
+        net.backward_params(top.view()).map_err(|e| e.to_string())?;
         let (params, grads) = net.grads_with_params();
         objective.penalty.add_gradient(params, grads, &self.ranges);
         if let Some(t) = non_finite_tensor(net, net.grads(), true) {
@@ -772,7 +772,7 @@ impl<F: Scalar> LbfgsProblem for FullBatch<'_, '_, '_, '_, '_, F> {
             .loss
             .gradient_into(net.output(), ys, self.top.view_mut())
             .is_err()
-            || net.backward(self.top.view()).is_err()
+            || net.backward_params(self.top.view()).is_err()
         {
             return f64::NAN;
         }

@@ -124,7 +124,20 @@ impl<F: Scalar> Layer<F> for Affine<F> {
         input: ArrayView2<'_, F>,
         grad_out: ArrayView2<'_, F>,
     ) -> ArrayView2<'_, F> {
+        self.backward_params(params, grads, input, grad_out);
         let (w, _) = self.split(params);
+        self.grad_in.reshape(grad_out.nrows(), self.inputs);
+        matmul(grad_out, w.t(), &mut self.grad_in.view_mut(), false);
+        self.grad_in.view()
+    }
+
+    fn backward_params(
+        &mut self,
+        _params: &[F],
+        grads: &mut [F],
+        input: ArrayView2<'_, F>,
+        grad_out: ArrayView2<'_, F>,
+    ) {
         let (mut dw, mut db) = self.split_mut(grads);
         matmul(input.t(), grad_out, &mut dw, true);
         match (grad_out.as_slice(), db.as_slice_mut()) {
@@ -139,8 +152,5 @@ impl<F: Scalar> Layer<F> for Affine<F> {
                 }
             }
         }
-        self.grad_in.reshape(grad_out.nrows(), self.inputs);
-        matmul(grad_out, w.t(), &mut self.grad_in.view_mut(), false);
-        self.grad_in.view()
     }
 }

@@ -112,6 +112,19 @@ pub trait Layer<F: Scalar>: Send + Sync + fmt::Debug {
         grad_out: ArrayView2<'_, F>,
     ) -> ArrayView2<'_, F>;
 
+    /// Like [`Layer::backward`] for a caller that does not need the input gradient (the first
+    /// layer of a network in training): parameter gradients only; a layer may then skip the
+    /// input gradient, which [`Layer::input_grad`] no longer reflects.
+    fn backward_params(
+        &mut self,
+        params: &[F],
+        grads: &mut [F],
+        input: ArrayView2<'_, F>,
+        grad_out: ArrayView2<'_, F>,
+    ) {
+        self.backward(params, grads, input, grad_out);
+    }
+
     /// While held, training passes reuse the last drawn noise (dropout mask, random slopes)
     /// instead of drawing anew; the gradient checker needs a fixed function.
     fn hold_noise(&mut self, _hold: bool) {}
