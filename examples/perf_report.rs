@@ -199,23 +199,21 @@ fn activation_forward(act: Activation, x: ArrayView2<'_, f32>) -> (f64, f64) {
 
 fn main() {
     println!(
-        "# relume perf report ({} logical CPUs)",
-        std::thread::available_parallelism().map_or(1, |n| n.get())
+        "# relume perf report ({} logical CPUs; matrix products on {} thread(s): {})",
+        std::thread::available_parallelism().map_or(1, |n| n.get()),
+        if cfg!(feature = "threads") {
+            std::env::var("MATMUL_NUM_THREADS").unwrap_or_else(|_| "physical CPUs".into())
+        } else {
+            "1".into()
+        },
+        if cfg!(feature = "threads") {
+            "built with --features threads, MATMUL_NUM_THREADS sets the count"
+        } else {
+            "build with --features threads and MATMUL_NUM_THREADS=2 for the 2-thread case"
+        }
     );
     training_step("tabular_b32", &[10, 64, 64, 1], 32, 2000);
-    let one = training_step("wide_b256", &[256, 256, 256, 256, 1], 256, 20);
-    let big_one = {
-        // The same network at batch 1024 on one thread, for the speed-up line below.
-        let mut net = NetworkPlan::new(256, &[256, 256, 256], Activation::Relu)
-            .build::<f32>(1)
-            .expect("plan");
-        let x = inputs(1024, 256);
-        measure(5, 9, || {
-            black_box(net.forward(x.view(), Pass::Train).expect("shapes"));
-        })
-        .0
-    };
-    let _ = (one, big_one);
+    training_step("wide_b256", &[256, 256, 256, 256, 1], 256, 20);
     training_step("wide_b1024_2t", &[256, 256, 256, 256, 1], 1024, 5);
     row_predict();
     let x = inputs(1024, 1024);
