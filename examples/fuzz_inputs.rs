@@ -1,0 +1,155 @@
+//! Seeded random-input harness for the two parsers that meet untrusted bytes: the model-file
+//! loader and the CSV reader. (cargo-fuzz needs a nightly compiler, which this project does not
+//! use; this harness mutates valid inputs instead: byte flips, inserts, deletes, truncations,
+//! splices and number swaps.) Any panic is a bug: the input is written to
+//! tests/data/fuzz/ and the run fails.
+//!
+//! Run: `cargo run --release --example fuzz_inputs -- [model|csv] SECONDS [SEED]`.
+
+use rand::{Rng, SeedableRng};
+use relume::data::{ReadOptions, Table};
+use relume::Model;
+use std::panic::{catch_unwind, AssertUnwindSafe};
+use std::time::{Duration, Instant};
+
+fn seed_model() -> Vec<u8> {
+    let mut csv = String::from("a,kind,y\n");
+    for i in 0..60 {
+        csv += &format!(
+            "{},{},{}\n",
+            i as f64 / 7.0,
+            ["p", "q", "r"][i % 3],
+            (i as f64).sin()
+        );
+    }
+    let table = Table::read(csv.as_bytes(), "seed", &ReadOptions::default()).expect("seed table");
+    let spec = relume::EncoderSpec {
+        target: "y".into(),
+        ..Default::default()
+    };
+    let recipe = relume::Recipe {
+        hidden: vec![4],
+        ..Default::default()
+    }
+    .with_config(relume::TrainConfig {
+        epochs: 2,
+        ..Default::default()
+    });
+    let (model, _) = Model::fit(&table, &spec, &recipe, Default::default()).expect("seed model");
+    model.to_json().into_bytes()
+}
+
+fn seed_csv() -> Vec<u8> {
+    b"x,y,kind,z\n1.5,2,a,3\n-0.25,1e-3,b,4\n7,,a,5\n\"q,uoted\",8,c,9\n".to_vec()
+}
+
+const NUMBERS: [&[u8]; 10] = [
+    b"0",
+    b"-1",
+    b"1e308",
+    b"1e999",
+    b"-0",
+    b"18446744073709551616",
+    b"4294967296",
+    b"NaN",
+    b"null",
+    b"65537",
+];
+
+fn mutate(seed: &[u8], rng: &mut impl Rng) -> Vec<u8> {
+    let mut v = seed.to_vec();
+    for _ in 0..rng.random_range(1..6) {
+        let n = v.len().max(1);
+        match rng.random_range(0..7) {
+            0 => {
+                let i = rng.random_range(0..n);
+                if i < v.len() {
+                    v[i] ^= 1 << rng.random_range(0..8);
+                }
+            }
+            1 => {
+                let i = rng.random_range(0..=v.len());
+                v.insert(i, rng.random());
+            }
+            2 if !v.is_empty() => {
+                let i = rng.random_range(0..v.len());
+                v.remove(i);
+            }
+            3 => v.truncate(rng.random_range(0..=v.len())),
+            4 if v.len() > 2 => {
+                // Copy a random span elsewhere.
+                let a = rng.random_range(0..v.len());
+                let b = rng.random_range(a..v.len().min(a + 64));
+                let span = v[a..b].to_vec();
+                let at = rng.random_range(0..=v.len());
+                v.splice(at..at, span);
+            }
+            5 => {
+                // Replace a run of digits with a hostile number.
+                if let Some(start) = (0..v.len())
+                    .map(|_| rng.random_range(0..n))
+                    .find(|&i| i < v.len() && v[i].is_ascii_digit())
+                {
+                    let mut end = start;
+                    while end < v.len() && (v[end].is_ascii_digit() || v[end] == b'.') {
+                        end += 1;
+                    }
+                    let with = NUMBERS[rng.random_range(0..NUMBERS.len())];
+                    v.splice(start..end, with.iter().copied());
+                }
+            }
+            _ => {
+                let i = rng.random_range(0..=v.len());
+                let junk: &[u8] =
+                    [b"," as &[u8], b"\"", b"\n", b"{", b"]", b"\xff\xfe"][rng.random_range(0..6)];
+                v.splice(i..i, junk.iter().copied());
+            }
+        }
+    }
+    v
+}
+
+fn main() {
+    let mut args = std::env::args().skip(1);
+    let target = args.next().unwrap_or_else(|| "model".into());
+    let seconds: u64 = args.next().and_then(|s| s.parse().ok()).unwrap_or(10);
+    let seed: u64 = args.next().and_then(|s| s.parse().ok()).unwrap_or(1);
+    let corpus = if target == "csv" {
+        seed_csv()
+    } else {
+        seed_model()
+    };
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+    std::panic::set_hook(Box::new(|_| {}));
+    let deadline = Instant::now() + Duration::from_secs(seconds);
+    let (mut runs, mut accepted, mut crashes) = (0u64, 0u64, 0u64);
+    while Instant::now() < deadline {
+        let input = mutate(&corpus, &mut rng);
+        let outcome = catch_unwind(AssertUnwindSafe(|| {
+            if target == "csv" {
+                Table::read(input.as_slice(), "fuzz", &ReadOptions::default()).is_ok()
+            } else {
+                match std::str::from_utf8(&input) {
+                    Ok(text) => Model::from_json(text).is_ok(),
+                    Err(_) => false,
+                }
+            }
+        }));
+        runs += 1;
+        match outcome {
+            Ok(ok) => accepted += u64::from(ok),
+            Err(_) => {
+                crashes += 1;
+                let dir = concat!(env!("CARGO_MANIFEST_DIR"), "/tests/data/fuzz");
+                std::fs::create_dir_all(dir).ok();
+                let path = format!("{dir}/{target}-crash-{seed}-{runs}.bin");
+                std::fs::write(&path, &input).ok();
+                eprintln!("crash saved to {path}");
+            }
+        }
+    }
+    println!("fuzz {target}: {runs} executions in {seconds} s, {accepted} accepted, {crashes} crashes (seed {seed})");
+    if crashes > 0 {
+        std::process::exit(1);
+    }
+}
