@@ -109,34 +109,21 @@ fn mutate(seed: &[u8], rng: &mut impl Rng) -> Vec<u8> {
     v
 }
 
-fn main() {
-    let mut args = std::env::args().skip(1);
-    let target = args.next().unwrap_or_else(|| "model".into());
-    let seconds: u64 = args.next().and_then(|s| s.parse().ok()).unwrap_or(10);
-    let seed: u64 = args.next().and_then(|s| s.parse().ok()).unwrap_or(1);
+/// Mutates the seed input of `target` ("model" or "csv") for `duration`; returns
+/// (executions, inputs accepted, crashes). Crashing inputs are written to tests/data/fuzz/.
+pub fn fuzz(target: &str, duration: Duration, seed: u64) -> (u64, u64, u64) {
     let corpus = if target == "csv" {
         seed_csv()
     } else {
         seed_model()
     };
     let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
-    std::panic::set_hook(Box::new(|_| {}));
-    let deadline = Instant::now() + Duration::from_secs(seconds);
+    let deadline = Instant::now() + duration;
     let (mut runs, mut accepted, mut crashes) = (0u64, 0u64, 0u64);
     while Instant::now() < deadline {
         let input = mutate(&corpus, &mut rng);
-        let outcome = catch_unwind(AssertUnwindSafe(|| {
-            if target == "csv" {
-                Table::read(input.as_slice(), "fuzz", &ReadOptions::default()).is_ok()
-            } else {
-                match std::str::from_utf8(&input) {
-                    Ok(text) => Model::from_json(text).is_ok(),
-                    Err(_) => false,
-                }
-            }
-        }));
         runs += 1;
-        match outcome {
+        match catch_unwind(AssertUnwindSafe(|| parse(target, &input))) {
             Ok(ok) => accepted += u64::from(ok),
             Err(_) => {
                 crashes += 1;
@@ -148,6 +135,26 @@ fn main() {
             }
         }
     }
+    (runs, accepted, crashes)
+}
+
+/// Feeds one input to the parser under test; true if it was accepted.
+pub fn parse(target: &str, input: &[u8]) -> bool {
+    if target == "csv" {
+        Table::read(input, "fuzz", &ReadOptions::default()).is_ok()
+    } else {
+        std::str::from_utf8(input).is_ok_and(|text| Model::from_json(text).is_ok())
+    }
+}
+
+#[allow(dead_code)]
+fn main() {
+    let mut args = std::env::args().skip(1);
+    let target = args.next().unwrap_or_else(|| "model".into());
+    let seconds: u64 = args.next().and_then(|s| s.parse().ok()).unwrap_or(10);
+    let seed: u64 = args.next().and_then(|s| s.parse().ok()).unwrap_or(1);
+    std::panic::set_hook(Box::new(|_| {}));
+    let (runs, accepted, crashes) = fuzz(&target, Duration::from_secs(seconds), seed);
     println!("fuzz {target}: {runs} executions in {seconds} s, {accepted} accepted, {crashes} crashes (seed {seed})");
     if crashes > 0 {
         std::process::exit(1);
