@@ -14,35 +14,14 @@ use relume::layer::{Layer, Pass, Pointwise};
 use relume::monitor::MonitorConfig;
 use relume::predict::Cell;
 use relume::{Activation, Adam, Loss, Model, NetworkPlan, Optimizer, Predictor, Recipe};
-use std::alloc::{GlobalAlloc, Layout, System};
 use std::hint::black_box;
-use std::sync::atomic::{AtomicUsize, Ordering};
 use std::time::Instant;
 
-struct Counting;
-
-static ALLOCATIONS: AtomicUsize = AtomicUsize::new(0);
-
-// SAFETY: forwards every call to the system allocator unchanged; it only counts.
-unsafe impl GlobalAlloc for Counting {
-    unsafe fn alloc(&self, layout: Layout) -> *mut u8 {
-        ALLOCATIONS.fetch_add(1, Ordering::Relaxed);
-        // SAFETY: same contract as our caller's.
-        unsafe { System.alloc(layout) }
-    }
-    unsafe fn dealloc(&self, ptr: *mut u8, layout: Layout) {
-        // SAFETY: `ptr` was allocated by `System` with `layout`.
-        unsafe { System.dealloc(ptr, layout) }
-    }
-    unsafe fn realloc(&self, ptr: *mut u8, layout: Layout, size: usize) -> *mut u8 {
-        ALLOCATIONS.fetch_add(1, Ordering::Relaxed);
-        // SAFETY: same contract as our caller's.
-        unsafe { System.realloc(ptr, layout, size) }
-    }
-}
+#[path = "support/counting.rs"]
+mod counting;
 
 #[global_allocator]
-static GLOBAL: Counting = Counting;
+static GLOBAL: counting::Counting = counting::Counting;
 
 /// Median microseconds per call of `f`, over `reps` batches of `iters` calls, after warm-up;
 /// and the allocations per call during the timed batches.
@@ -50,7 +29,7 @@ fn measure(iters: usize, reps: usize, mut f: impl FnMut()) -> (f64, f64) {
     for _ in 0..iters.max(3) {
         f();
     }
-    let before = ALLOCATIONS.load(Ordering::Relaxed);
+    let before = counting::allocations();
     let mut times = Vec::with_capacity(reps);
     for _ in 0..reps {
         let t = Instant::now();
@@ -59,7 +38,7 @@ fn measure(iters: usize, reps: usize, mut f: impl FnMut()) -> (f64, f64) {
         }
         times.push(t.elapsed().as_secs_f64() * 1e6 / iters as f64);
     }
-    let allocs = (ALLOCATIONS.load(Ordering::Relaxed) - before) as f64 / (iters * reps) as f64;
+    let allocs = (counting::allocations() - before) as f64 / (iters * reps) as f64;
     times.sort_by(f64::total_cmp);
     (times[reps / 2], allocs)
 }

@@ -5,33 +5,12 @@ use relume::data::{EncoderSpec, ReadOptions, Table};
 use relume::monitor::MonitorConfig;
 use relume::predict::Cell;
 use relume::{Model, Predictor, Recipe};
-use std::alloc::{GlobalAlloc, Layout, System};
-use std::sync::atomic::{AtomicUsize, Ordering};
 
-struct Counting;
-
-static ALLOCATIONS: AtomicUsize = AtomicUsize::new(0);
-
-// SAFETY: forwards to the system allocator unchanged; it only counts calls.
-unsafe impl GlobalAlloc for Counting {
-    unsafe fn alloc(&self, layout: Layout) -> *mut u8 {
-        ALLOCATIONS.fetch_add(1, Ordering::SeqCst);
-        // SAFETY: same contract as the caller's.
-        unsafe { System.alloc(layout) }
-    }
-    unsafe fn dealloc(&self, ptr: *mut u8, layout: Layout) {
-        // SAFETY: `ptr` came from `System.alloc` with this layout.
-        unsafe { System.dealloc(ptr, layout) }
-    }
-    unsafe fn realloc(&self, ptr: *mut u8, layout: Layout, size: usize) -> *mut u8 {
-        ALLOCATIONS.fetch_add(1, Ordering::SeqCst);
-        // SAFETY: same contract as the caller's.
-        unsafe { System.realloc(ptr, layout, size) }
-    }
-}
+#[path = "../examples/support/counting.rs"]
+mod counting;
 
 #[global_allocator]
-static GLOBAL: Counting = Counting;
+static GLOBAL: counting::Counting = counting::Counting;
 
 #[test]
 fn predicting_one_row_allocates_nothing() {
@@ -58,7 +37,7 @@ fn predicting_one_row_allocates_nothing() {
     let mut scratch = predictor.scratch();
     let row = [Cell::Number(0.3), Cell::Number(-0.2), Cell::Text("q")];
     predictor.predict_row(&row, &mut scratch).unwrap();
-    let before = ALLOCATIONS.load(Ordering::SeqCst);
+    let before = counting::allocations();
     let mut sum = 0.0;
     for i in 0..1000 {
         let row = [
@@ -68,7 +47,7 @@ fn predicting_one_row_allocates_nothing() {
         ];
         sum += predictor.predict_row(&row, &mut scratch).unwrap().value;
     }
-    let after = ALLOCATIONS.load(Ordering::SeqCst);
+    let after = counting::allocations();
     assert!(sum.is_finite());
     assert_eq!(after - before, 0, "allocations in 1000 row predictions");
 }

@@ -65,12 +65,8 @@ enum Command {
 struct CompareArgs {
     #[command(flatten)]
     table: TableArgs,
-    /// The column to predict.
-    #[arg(long, value_name = "COL")]
-    target: String,
-    /// Feature columns (default: every column but the target).
-    #[arg(long, value_delimiter = ',', value_name = "a,b,..")]
-    features: Option<Vec<String>>,
+    #[command(flatten)]
+    columns: ColumnArgs,
     /// Activations to compare.
     #[arg(long, value_delimiter = ',', value_name = "relu,elu,..")]
     activations: Vec<Activation>,
@@ -139,16 +135,23 @@ struct TableArgs {
     allow_non_finite: bool,
 }
 
+/// Which columns to model.
 #[derive(Args, Debug)]
-struct TrainArgs {
-    #[command(flatten)]
-    table: TableArgs,
+struct ColumnArgs {
     /// The column to predict.
     #[arg(long, value_name = "COL")]
     target: String,
     /// Feature columns (default: every column but the target).
     #[arg(long, value_delimiter = ',', value_name = "a,b,..")]
     features: Option<Vec<String>>,
+}
+
+#[derive(Args, Debug)]
+struct TrainArgs {
+    #[command(flatten)]
+    table: TableArgs,
+    #[command(flatten)]
+    columns: ColumnArgs,
     /// Hidden layer widths (default 64,64).
     #[arg(long, value_delimiter = ',', value_name = "64,64")]
     layers: Option<Vec<usize>>,
@@ -350,8 +353,8 @@ impl Observer<f32> for Progress {
 fn train(a: TrainArgs) -> Result<(), Failure> {
     let table = read_table(&a.table)?;
     let spec = EncoderSpec {
-        target: a.target.clone(),
-        features: a.features.clone(),
+        target: a.columns.target.clone(),
+        features: a.columns.features.clone(),
         impute: a.impute.map(|i| match i {
             ImputeArg::Mean => Impute::Mean,
             ImputeArg::Median => Impute::Median,
@@ -375,13 +378,13 @@ fn train(a: TrainArgs) -> Result<(), Failure> {
     }
     .recipe();
     // Data summary.
-    let target = table.column(&a.target)?;
+    let target = table.column(&a.columns.target)?;
     let values: Vec<f64> = match &target.data {
         relume::data::ColumnData::Number(v) => v.iter().copied().filter(|v| !v.is_nan()).collect(),
         relume::data::ColumnData::Text(_) => {
             return Err(Failure::User(format!(
                 "{}: the target column '{}' is not numeric",
-                table.source, a.target
+                table.source, a.columns.target
             )))
         }
     };
@@ -398,7 +401,7 @@ fn train(a: TrainArgs) -> Result<(), Failure> {
         table.source,
         table.rows(),
         table.columns.len(),
-        a.target
+        a.columns.target
     );
     let config = recipe.config_for(table.rows());
     eprintln!(
@@ -764,8 +767,8 @@ fn compare(a: CompareArgs) -> Result<(), Failure> {
     let shard = a.shard.as_deref().map(parse_shard).transpose()?;
     let table = read_table(&a.table)?;
     let spec = EncoderSpec {
-        target: a.target.clone(),
-        features: a.features.clone(),
+        target: a.columns.target.clone(),
+        features: a.columns.features.clone(),
         ..EncoderSpec::default()
     };
     let base = Overrides {
