@@ -16,3 +16,27 @@ pub fn matmul<F: Scalar>(
     let beta = if accumulate { F::one() } else { F::zero() };
     general_mat_mul(F::one(), &a, &b, beta, c);
 }
+
+/// Runs `body` in code compiled with AVX2 and FMA enabled when the CPU has them (checked once
+/// per call), else as is: loops inside `body` then vectorize 8-wide while the crate still builds
+/// for baseline x86-64.
+#[inline(always)]
+pub(crate) fn with_simd<R>(body: impl FnOnce() -> R) -> R {
+    #[cfg(target_arch = "x86_64")]
+    {
+        if std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma") {
+            // SAFETY: the running CPU supports AVX2 and FMA (checked just above), the only
+            // requirement of `with_avx2`.
+            return unsafe { with_avx2(body) };
+        }
+    }
+    body()
+}
+
+/// # Safety
+/// The CPU must support AVX2 and FMA.
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma")]
+unsafe fn with_avx2<R>(body: impl FnOnce() -> R) -> R {
+    body()
+}

@@ -82,22 +82,26 @@ impl<F: Scalar> Optimizer<F> for Adam<F> {
             }
         }
         // Moments, then the step; split into simple loops so they vectorize.
-        for ((m, v), &g) in self.m.iter_mut().zip(self.v.iter_mut()).zip(grads) {
-            *m = b1 * *m + (one - b1) * g;
-            *v = b2 * *v + (one - b2) * g * g;
-        }
-        let second = if self.amsgrad {
-            for (vm, &v) in self.v_max.iter_mut().zip(&self.v) {
-                *vm = vm.max(v);
+        let (m_state, v_state, v_max) = (&mut self.m, &mut self.v, &mut self.v_max);
+        let amsgrad = self.amsgrad;
+        crate::kernels::with_simd(|| {
+            for ((m, v), &g) in m_state.iter_mut().zip(v_state.iter_mut()).zip(grads) {
+                *m = b1 * *m + (one - b1) * g;
+                *v = b2 * *v + (one - b2) * g * g;
             }
-            &self.v_max
-        } else {
-            &self.v
-        };
-        let step = lr * inv_c1;
-        for ((p, &m), &v) in params.iter_mut().zip(&self.m).zip(second) {
-            *p -= step * m / ((v * inv_c2).sqrt() + eps);
-        }
+            let second = if amsgrad {
+                for (vm, &v) in v_max.iter_mut().zip(v_state.iter()) {
+                    *vm = vm.max(v);
+                }
+                &*v_max
+            } else {
+                &*v_state
+            };
+            let step = lr * inv_c1;
+            for ((p, &m), &v) in params.iter_mut().zip(m_state.iter()).zip(second) {
+                *p -= step * m / ((v * inv_c2).sqrt() + eps);
+            }
+        });
     }
 
     fn learning_rate(&self) -> f64 {
