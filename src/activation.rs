@@ -307,7 +307,7 @@ impl Activation {
     /// the common rectifiers run as tight, vectorizable loops.
     pub fn apply<F: Scalar>(&self, x: &[F], out: &mut [F]) {
         fn each<F: Scalar>(x: &[F], out: &mut [F], f: impl Fn(F) -> F) {
-            simd_dispatch!(map_into(x, out, f))
+            crate::kernels::with_simd(|| map_into(x, out, f))
         }
         let zero = F::zero();
         match *self {
@@ -344,7 +344,7 @@ impl Activation {
     /// out[i] = g[i]·f'(x[i]): the backward pass of [`Activation::apply`].
     pub fn apply_derivative<F: Scalar>(&self, x: &[F], g: &[F], out: &mut [F]) {
         fn each<F: Scalar>(x: &[F], g: &[F], out: &mut [F], f: impl Fn(F) -> F) {
-            simd_dispatch!(scale_into(x, g, out, f))
+            crate::kernels::with_simd(|| scale_into(x, g, out, f))
         }
         let (zero, one) = (F::zero(), F::one());
         match *self {
@@ -590,23 +590,6 @@ impl FromStr for Activation {
     }
 }
 
-/// Runs a kernel loop through its AVX2 + FMA build when the CPU has those (checked once per
-/// call, not per element), else through the baseline build.
-macro_rules! simd_dispatch {
-    ($kernel:ident($($arg:expr),*)) => {{
-        #[cfg(target_arch = "x86_64")]
-        {
-            if std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma") {
-                // SAFETY: the running CPU supports AVX2 and FMA (checked just above), the only
-                // requirement of the `_avx2` build.
-                return unsafe { simd::$kernel($($arg),*) };
-            }
-        }
-        $kernel($($arg),*)
-    }};
-}
-use simd_dispatch;
-
 /// out[i] = f(x[i]).
 #[inline(always)]
 fn map_into<F: Scalar>(x: &[F], out: &mut [F], f: impl Fn(F) -> F) {
@@ -620,30 +603,6 @@ fn map_into<F: Scalar>(x: &[F], out: &mut [F], f: impl Fn(F) -> F) {
 fn scale_into<F: Scalar>(x: &[F], g: &[F], out: &mut [F], f: impl Fn(F) -> F) {
     for ((o, &v), &gv) in out.iter_mut().zip(x).zip(g) {
         *o = gv * f(v);
-    }
-}
-
-/// The same loops compiled with AVX2 and FMA enabled.
-#[cfg(target_arch = "x86_64")]
-mod simd {
-    use super::Scalar;
-
-    /// [`super::map_into`] for AVX2 + FMA CPUs.
-    ///
-    /// # Safety
-    /// The CPU must support AVX2 and FMA.
-    #[target_feature(enable = "avx2,fma")]
-    pub unsafe fn map_into<F: Scalar>(x: &[F], out: &mut [F], f: impl Fn(F) -> F) {
-        super::map_into(x, out, f)
-    }
-
-    /// [`super::scale_into`] for AVX2 + FMA CPUs.
-    ///
-    /// # Safety
-    /// The CPU must support AVX2 and FMA.
-    #[target_feature(enable = "avx2,fma")]
-    pub unsafe fn scale_into<F: Scalar>(x: &[F], g: &[F], out: &mut [F], f: impl Fn(F) -> F) {
-        super::scale_into(x, g, out, f)
     }
 }
 
