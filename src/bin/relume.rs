@@ -94,15 +94,8 @@ struct CompareArgs {
     /// Run only shard i of n of the grid and write a partial report (merge the parts later).
     #[arg(long, value_name = "i/n")]
     shard: Option<String>,
-    /// Write the JSON report here.
-    #[arg(long, value_name = "CMP.json")]
-    report: Option<PathBuf>,
-    /// Write the Markdown table here.
-    #[arg(long = "table", value_name = "CMP.md")]
-    table_out: Option<PathBuf>,
-    /// Write the SVG chart here.
-    #[arg(long, value_name = "CMP.svg")]
-    plot: Option<PathBuf>,
+    #[command(flatten)]
+    outputs: SweepOutputs,
 }
 
 #[derive(Args, Debug)]
@@ -110,7 +103,14 @@ struct MergeArgs {
     /// The shard reports.
     #[arg(long, value_delimiter = ',', value_name = "A.json,B.json,..")]
     reports: Vec<PathBuf>,
-    /// Write the merged JSON report here.
+    #[command(flatten)]
+    outputs: SweepOutputs,
+}
+
+/// Where a comparison's results go.
+#[derive(Args, Debug)]
+struct SweepOutputs {
+    /// Write the JSON report here.
     #[arg(long, value_name = "CMP.json")]
     report: Option<PathBuf>,
     /// Write the Markdown table here.
@@ -728,10 +728,13 @@ fn parse_shard(text: &str) -> Result<(usize, usize), Failure> {
 
 fn write_outputs(
     report: &relume::compare::SweepReport,
-    json: Option<&PathBuf>,
-    table: Option<&PathBuf>,
-    plot: Option<&PathBuf>,
+    outputs: &SweepOutputs,
 ) -> Result<(), Failure> {
+    let (json, table, plot) = (
+        outputs.report.as_ref(),
+        outputs.table_out.as_ref(),
+        outputs.plot.as_ref(),
+    );
     if let Some(path) = json {
         relume::atomic::write_atomic(path, report.to_json().as_bytes())
             .map_err(|e| io_failure(path, e))?;
@@ -789,12 +792,7 @@ fn compare(a: CompareArgs) -> Result<(), Failure> {
         shard.map_or(String::new(), |(i, n)| format!(", shard {i}/{n}"))
     );
     let report = relume::compare::run(&table, &spec, &plan, shard)?;
-    write_outputs(
-        &report,
-        a.report.as_ref(),
-        a.table_out.as_ref(),
-        a.plot.as_ref(),
-    )?;
+    write_outputs(&report, &a.outputs)?;
     eprintln!("\n{CAUTIONS}");
     Ok(())
 }
@@ -809,10 +807,5 @@ fn merge(a: MergeArgs) -> Result<(), Failure> {
         );
     }
     let merged = relume::compare::merge(&parts).map_err(Failure::User)?;
-    write_outputs(
-        &merged,
-        a.report.as_ref(),
-        a.table_out.as_ref(),
-        a.plot.as_ref(),
-    )
+    write_outputs(&merged, &a.outputs)
 }
