@@ -191,10 +191,24 @@ fn main() {
             "build with --features threads and MATMUL_NUM_THREADS=2 for the 2-thread case"
         }
     );
-    training_step("tabular_b32", &[10, 64, 64, 1], 32, 2000);
-    training_step("wide_b256", &[256, 256, 256, 256, 1], 256, 20);
-    training_step("wide_b1024_2t", &[256, 256, 256, 256, 1], 1024, 5);
-    row_predict();
+    // Optional arguments name the cases to run (all when none), e.g. for profiling one case.
+    let only: Vec<String> = std::env::args().skip(1).collect();
+    let wanted = |case: &str| only.is_empty() || only.iter().any(|c| c == case);
+    if wanted("tabular_b32") {
+        training_step("tabular_b32", &[10, 64, 64, 1], 32, 2000);
+    }
+    if wanted("wide_b256") {
+        training_step("wide_b256", &[256, 256, 256, 256, 1], 256, 20);
+    }
+    if wanted("wide_b1024_2t") {
+        training_step("wide_b1024_2t", &[256, 256, 256, 256, 1], 1024, 5);
+    }
+    if wanted("row_predict") {
+        row_predict();
+    }
+    if !wanted("relu_fwd") {
+        return;
+    }
     let x = inputs(1024, 1024);
     let (relu, allocs) = activation_forward(Activation::Relu, x.view());
     let mut copy = Array2::<f32>::zeros((1024, 1024));

@@ -1,7 +1,7 @@
 //! Adam (Kingma & Ba 2015) with bias correction; AMSGrad (Reddi et al. 2018) and decoupled
 //! weight decay (AdamW, Loshchilov & Hutter 2019) as options.
 
-use super::{fit_state, zero_entries, Optimizer};
+use super::{fit_state, flush_tiny, zero_entries, Optimizer};
 use crate::scalar::Scalar;
 
 /// Adam: per-parameter steps from bias-corrected first and second moment estimates,
@@ -81,24 +81,27 @@ impl<F: Scalar> Optimizer<F> for Adam<F> {
                 }
             }
         }
-        // Moments, then the step; split into simple loops so they vectorize.
         let (m_state, v_state, v_max) = (&mut self.m, &mut self.v, &mut self.v_max);
-        let amsgrad = self.amsgrad;
+        let step = lr * inv_c1;
         crate::kernels::with_simd(|| {
-            for ((m, v), &g) in m_state.iter_mut().zip(v_state.iter_mut()).zip(grads) {
-                *m = b1 * *m + (one - b1) * g;
-                *v = b2 * *v + (one - b2) * g * g;
-            }
-            let second = if amsgrad {
-                for (vm, &v) in v_max.iter_mut().zip(v_state.iter()) {
-                    *vm = vm.max(v);
+            if !self.amsgrad {
+                // One pass over the four vectors: moments, then the step.
+                let state = m_state.iter_mut().zip(v_state.iter_mut());
+                for ((p, &g), (m, v)) in params.iter_mut().zip(grads).zip(state) {
+                    *m = flush_tiny(b1 * *m + (one - b1) * g);
+                    *v = flush_tiny(b2 * *v + (one - b2) * g * g);
+                    *p -= step * *m / ((*v * inv_c2).sqrt() + eps);
                 }
-                &*v_max
-            } else {
-                &*v_state
-            };
-            let step = lr * inv_c1;
-            for ((p, &m), &v) in params.iter_mut().zip(m_state.iter()).zip(second) {
+                return;
+            }
+            for ((m, v), &g) in m_state.iter_mut().zip(v_state.iter_mut()).zip(grads) {
+                *m = flush_tiny(b1 * *m + (one - b1) * g);
+                *v = flush_tiny(b2 * *v + (one - b2) * g * g);
+            }
+            for (vm, &v) in v_max.iter_mut().zip(v_state.iter()) {
+                *vm = vm.max(v);
+            }
+            for ((p, &m), &v) in params.iter_mut().zip(m_state.iter()).zip(v_max.iter()) {
                 *p -= step * m / ((v * inv_c2).sqrt() + eps);
             }
         });
@@ -125,5 +128,19 @@ impl<F: Scalar> Optimizer<F> for Adam<F> {
 
     fn set_decay_mask(&mut self, mask: &[bool]) {
         self.decay_mask = mask.to_vec();
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::Adam;
+
+    #[test]
+    fn moments_of_a_zero_gradient_never_become_subnormal() {
+        for amsgrad in [false, true] {
+            super::super::decay_to_zero(Adam::new(1e-3).amsgrad(amsgrad), |o| {
+                [&o.m[..], &o.v[..], &o.v_max[..]].concat()
+            });
+        }
     }
 }

@@ -166,6 +166,20 @@ impl FromStr for OptimizerChoice {
     }
 }
 
+/// `x`, or zero when |x| is within 2²⁴ of the smallest normal number. Optimizer state goes
+/// through this when stored, so its next decay cannot land in the subnormal range: once a parameter's gradient is zero (a dead unit), its moments
+/// shrink geometrically through the subnormal range, where x86 CPUs run arithmetic about 20×
+/// slower (measured: Adam on 4929 parameters, 2.9 µs per step normally, 63 µs while moments
+/// decay). The values flushed are below 2e-31 (f32), far under any step they could cause.
+#[inline(always)]
+pub(crate) fn flush_tiny<F: Scalar>(x: F) -> F {
+    if x.abs() < F::min_positive_value() * F::of(16_777_216.0) {
+        F::zero()
+    } else {
+        x
+    }
+}
+
 /// Zeroes `entries` of each state vector (vectors not yet sized are left alone).
 pub(crate) fn zero_entries<F: Scalar>(states: &mut [&mut Vec<F>], entries: &[usize]) {
     for state in states.iter_mut() {
@@ -185,4 +199,21 @@ pub(crate) fn fit_state<F: Scalar>(state: &mut Vec<F>, len: usize) -> bool {
     state.clear();
     state.resize(len, F::zero());
     true
+}
+
+/// Shared by the optimizers' unit tests: one real step, then many zero-gradient steps (a dead
+/// unit), after which no stored state value may be subnormal.
+#[cfg(test)]
+pub(crate) fn decay_to_zero<O: Optimizer<f32>>(mut opt: O, state: impl Fn(&O) -> Vec<f32>) {
+    let mut params = vec![0.5_f32, -0.25, 1.0];
+    opt.step(&mut params, &[1e-3, -2e-2, 3e-1]);
+    for _ in 0..20_000 {
+        opt.step(&mut params, &[0.0; 3]);
+        let values = state(&opt);
+        assert!(
+            values.iter().all(|v| *v == 0.0 || v.is_normal()),
+            "subnormal state {values:?}"
+        );
+    }
+    assert!(params.iter().all(|p| p.is_finite()));
 }

@@ -1,6 +1,6 @@
 //! RMSProp (Tieleman & Hinton 2012): divide each step by a running RMS of the gradient.
 
-use super::{fit_state, zero_entries, Optimizer};
+use super::{fit_state, flush_tiny, zero_entries, Optimizer};
 use crate::scalar::Scalar;
 
 /// s ← ρs + (1 − ρ)g²; θ ← θ − ε·g/(√s + 1e-8).
@@ -35,7 +35,7 @@ impl<F: Scalar> Optimizer<F> for RmsProp<F> {
         fit_state(&mut self.square_avg, params.len());
         let (lr, rho, eps) = (F::of(self.lr), F::of(self.decay), F::of(self.eps));
         for ((p, &g), s) in params.iter_mut().zip(grads).zip(self.square_avg.iter_mut()) {
-            *s = rho * *s + (F::one() - rho) * g * g;
+            *s = flush_tiny(rho * *s + (F::one() - rho) * g * g);
             *p -= lr * g / (s.sqrt() + eps);
         }
     }
@@ -54,5 +54,15 @@ impl<F: Scalar> Optimizer<F> for RmsProp<F> {
 
     fn reset_entries(&mut self, entries: &[usize]) {
         zero_entries(&mut [&mut self.square_avg], entries);
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::RmsProp;
+
+    #[test]
+    fn square_average_of_a_zero_gradient_never_becomes_subnormal() {
+        super::super::decay_to_zero(RmsProp::new(1e-3), |o| o.square_avg.clone());
     }
 }

@@ -1,6 +1,6 @@
 //! Stochastic gradient descent, with heavy-ball (Polyak 1964) or Nesterov momentum.
 
-use super::{fit_state, zero_entries, Optimizer};
+use super::{fit_state, flush_tiny, zero_entries, Optimizer};
 use crate::scalar::Scalar;
 
 /// SGD with optional momentum.
@@ -51,7 +51,7 @@ impl<F: Scalar> Optimizer<F> for Sgd<F> {
         let nesterov = self.nesterov;
         for ((p, &g), v) in params.iter_mut().zip(grads).zip(self.velocity.iter_mut()) {
             let old = *v;
-            *v = mu * old - lr * g;
+            *v = flush_tiny(mu * old - lr * g);
             if nesterov {
                 *p += (F::one() + mu) * *v - mu * old;
             } else {
@@ -74,5 +74,18 @@ impl<F: Scalar> Optimizer<F> for Sgd<F> {
 
     fn reset_entries(&mut self, entries: &[usize]) {
         zero_entries(&mut [&mut self.velocity], entries);
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::Sgd;
+
+    #[test]
+    fn velocity_of_a_zero_gradient_never_becomes_subnormal() {
+        for nesterov in [false, true] {
+            let opt = Sgd::new(1e-2).momentum(0.9, nesterov);
+            super::super::decay_to_zero(opt, |o| o.velocity.clone());
+        }
     }
 }
