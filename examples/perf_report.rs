@@ -4,12 +4,19 @@
 //! GEMM library, same threads) or, for the activation case, a memcpy of the same buffer.
 //! Allocations are counted by a counting global allocator after warm-up.
 //!
+//! The floor uses the crate's own product (`relume::kernels::matmul`); a `gemm=` line per
+//! training case times the same products through ndarray's `general_mat_mul` (the
+//! matrixmultiply crate), so a slow product cannot hide behind a good ratio. `wide_b1024_2t`
+//! runs on two threads (`relume::kernels::set_threads(2)`) and is also timed on one, for the
+//! speed-up line.
+//!
 //! Run: `cargo run --release --example perf_report`. Times are medians over repeated batches
 //! of iterations measured in this run, so the ratios compare like with like on a noisy machine.
 
+use ndarray::linalg::general_mat_mul;
 use ndarray::{Array2, ArrayView2};
 use relume::data::{EncoderSpec, ReadOptions, Table};
-use relume::kernels::matmul;
+use relume::kernels::{matmul, set_threads};
 use relume::layer::{Layer, Pass, Pointwise};
 use relume::monitor::MonitorConfig;
 use relume::predict::Cell;
@@ -67,7 +74,18 @@ type Operands = (
     Array2<f32>,
 );
 
-fn gemm_floor(widths: &[usize], batch: usize, iters: usize) -> f64 {
+/// A product c = a·b into `c` (ours, or the reference library's).
+type Product = fn(ArrayView2<'_, f32>, ArrayView2<'_, f32>, &mut Array2<f32>);
+
+fn ours(a: ArrayView2<'_, f32>, b: ArrayView2<'_, f32>, c: &mut Array2<f32>) {
+    matmul(a, b, &mut c.view_mut(), false);
+}
+
+fn reference(a: ArrayView2<'_, f32>, b: ArrayView2<'_, f32>, c: &mut Array2<f32>) {
+    general_mat_mul(1.0, &a, &b, 0.0, c);
+}
+
+fn gemm_floor(widths: &[usize], batch: usize, iters: usize, product: Product) -> f64 {
     let layers: Vec<Operands> = widths
         .windows(2)
         .map(|w| {
@@ -84,10 +102,10 @@ fn gemm_floor(widths: &[usize], batch: usize, iters: usize) -> f64 {
     let grads: Vec<Array2<f32>> = widths[1..].iter().map(|&w| inputs(batch, w)).collect();
     let (t, _) = measure(iters, 15, || {
         for (k, (x, w, y, dw, dx)) in layers.iter_mut().enumerate() {
-            matmul(x.view(), w.view(), &mut y.view_mut(), false);
-            matmul(x.t(), grads[k].view(), &mut dw.view_mut(), false);
+            product(x.view(), w.view(), y);
+            product(x.t(), grads[k].view(), dw);
             if k > 0 {
-                matmul(grads[k].view(), w.t(), &mut dx.view_mut(), false);
+                product(grads[k].view(), w.t(), dx);
             }
         }
         black_box(&layers);
@@ -113,8 +131,13 @@ fn training_step(case: &str, widths: &[usize], batch: usize, iters: usize) -> f6
         let (p, g) = net.params_and_grads();
         adam.step(p, g);
     });
-    let floor = gemm_floor(widths, batch, iters);
+    let floor = gemm_floor(widths, batch, iters, ours);
     line(case, step, floor, allocs);
+    let theirs = gemm_floor(widths, batch, iters, reference);
+    println!(
+        "gemm case={case} ours_us={floor:.2} matrixmultiply_us={theirs:.2} ratio={:.3}",
+        floor / theirs
+    );
     step
 }
 
@@ -152,7 +175,7 @@ fn row_predict() {
                 .expect("row"),
         );
     });
-    // Floor: the three row × matrix products through the same GEMM library.
+    // Floor: the three row × matrix products through the crate's product.
     let shapes = [(10, 64), (64, 64), (64, 1)];
     let mats: Vec<(Array2<f32>, Array2<f32>, Array2<f32>)> = shapes
         .iter()
@@ -178,19 +201,11 @@ fn activation_forward(act: Activation, x: ArrayView2<'_, f32>) -> (f64, f64) {
 
 fn main() {
     println!(
-        "# relume perf report ({} logical CPUs; matrix products on {} thread(s): {})",
+        "# relume perf report ({} logical CPUs, kernels for {:?}; one thread except _2t)",
         std::thread::available_parallelism().map_or(1, |n| n.get()),
-        if cfg!(feature = "threads") {
-            std::env::var("MATMUL_NUM_THREADS").unwrap_or_else(|_| "physical CPUs".into())
-        } else {
-            "1".into()
-        },
-        if cfg!(feature = "threads") {
-            "built with --features threads, MATMUL_NUM_THREADS sets the count"
-        } else {
-            "build with --features threads and MATMUL_NUM_THREADS=2 for the 2-thread case"
-        }
+        relume::kernels::simd_level()
     );
+    set_threads(1);
     // Optional arguments name the cases to run (all when none), e.g. for profiling one case.
     let only: Vec<String> = std::env::args().skip(1).collect();
     let wanted = |case: &str| only.is_empty() || only.iter().any(|c| c == case);
@@ -201,7 +216,14 @@ fn main() {
         training_step("wide_b256", &[256, 256, 256, 256, 1], 256, 20);
     }
     if wanted("wide_b1024_2t") {
-        training_step("wide_b1024_2t", &[256, 256, 256, 256, 1], 1024, 5);
+        set_threads(2);
+        let two = training_step("wide_b1024_2t", &[256, 256, 256, 256, 1], 1024, 5);
+        set_threads(1);
+        let one = training_step("wide_b1024_1t", &[256, 256, 256, 256, 1], 1024, 5);
+        println!(
+            "speedup case=wide_b1024 two_threads_over_one={:.3}",
+            one / two
+        );
     }
     if wanted("row_predict") {
         row_predict();

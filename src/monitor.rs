@@ -536,7 +536,7 @@ impl<F: Scalar> Observer<F> for Monitor<F> {
         let jump = self.max_norm;
         self.check_thresholds(record.epoch, &layers, jump);
         if let Some(revival) = self.config.revival {
-            if revival.every > 0 && (record.epoch + 1) % revival.every == 0 {
+            if revival.every > 0 && (record.epoch + 1).is_multiple_of(revival.every) {
                 let counts = self.revive(net, revival.tau);
                 for (s, c) in layers.iter_mut().zip(counts) {
                     s.revived = c;

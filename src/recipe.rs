@@ -41,7 +41,7 @@ pub const TINY_TABLE_ROWS: usize = 100;
 
 /// Patience, in iterations, of early stopping under L-BFGS (its validation loss moves in
 /// small, noisy steps, so it gets more iterations than Adam gets epochs).
-pub const LBFGS_PATIENCE: usize = 100;
+pub const LBFGS_PATIENCE: usize = 300;
 
 /// Everything needed to train a regressor from a table of numbers.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]

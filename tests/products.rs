@@ -1,0 +1,144 @@
+//! The matrix product against nalgebra's (a general-purpose reference crate), over shapes that
+//! hit every path: thin and tiny products (direct), partial register tiles, several depth
+//! blocks (k > 256), transposed operands, accumulation, f32 and f64, one and two threads.
+
+use nalgebra::DMatrix;
+use ndarray::{Array2, ArrayView2};
+use relume::kernels::{matmul, set_simd_limit, set_threads, simd_level, Simd};
+
+fn filled(rows: usize, cols: usize, seed: usize) -> Array2<f64> {
+    Array2::from_shape_fn((rows, cols), |(i, j)| {
+        let h = (i * 7919 + j * 104_729 + seed * 1_000_003) % 2003;
+        h as f64 / 1001.0 - 1.0
+    })
+}
+
+fn reference(a: ArrayView2<'_, f64>, b: ArrayView2<'_, f64>) -> DMatrix<f64> {
+    let na = DMatrix::from_fn(a.nrows(), a.ncols(), |i, j| a[[i, j]]);
+    let nb = DMatrix::from_fn(b.nrows(), b.ncols(), |i, j| b[[i, j]]);
+    na * nb
+}
+
+/// Checks c = a·b (+ c0) for one shape in f64 and f32, with each operand plain or transposed.
+fn check(m: usize, n: usize, k: usize) {
+    for (ta, tb, acc) in [
+        (false, false, false),
+        (true, false, true),
+        (false, true, false),
+        (true, true, true),
+    ] {
+        let a_store = if ta { filled(k, m, 1) } else { filled(m, k, 1) };
+        let b_store = if tb { filled(n, k, 2) } else { filled(k, n, 2) };
+        let a = if ta { a_store.t() } else { a_store.view() };
+        let b = if tb { b_store.t() } else { b_store.view() };
+        let c0 = filled(m, n, 3);
+        let mut want = reference(a, b);
+        // Higham's bound for a sum of k products: |error| ≤ γ(k+1) · Σ|a||b| (plus |c0|).
+        let mut bound = reference(a.mapv(f64::abs).view(), b.mapv(f64::abs).view());
+        bound += DMatrix::from_fn(m, n, |i, j| c0[[i, j]].abs());
+        if acc {
+            want += DMatrix::from_fn(m, n, |i, j| c0[[i, j]]);
+        }
+        let mut c = c0.clone();
+        matmul(a, b, &mut c.view_mut(), acc);
+        let af = a.mapv(|v| v as f32);
+        let bf = b.mapv(|v| v as f32);
+        let (af, bf) = (
+            if ta {
+                af.t().as_standard_layout().t().to_owned()
+            } else {
+                af
+            },
+            if tb {
+                bf.t().as_standard_layout().t().to_owned()
+            } else {
+                bf
+            },
+        );
+        let mut cf = c0.mapv(|v| v as f32);
+        matmul(af.view(), bf.view(), &mut cf.view_mut(), acc);
+        for i in 0..m {
+            for j in 0..n {
+                let w = want[(i, j)];
+                let scale = (k as f64 + 2.0) * bound[(i, j)];
+                let tol64 = f64::EPSILON * scale;
+                // f32 inputs are rounded copies: one more unit roundoff per operand.
+                let tol32 = f32::EPSILON as f64 * (scale + 2.0 * bound[(i, j)]);
+                assert!(
+                    (c[[i, j]] - w).abs() <= tol64,
+                    "f64 {m}×{k}·{k}×{n} (ta {ta}, tb {tb}, acc {acc}) at ({i},{j}): {} vs {w}",
+                    c[[i, j]]
+                );
+                assert!(
+                    (cf[[i, j]] as f64 - w).abs() <= tol32,
+                    "f32 {m}×{k}·{k}×{n} (ta {ta}, tb {tb}, acc {acc}) at ({i},{j}): {} vs {w}",
+                    cf[[i, j]]
+                );
+            }
+        }
+    }
+}
+
+#[test]
+fn products_match_nalgebra_on_every_path() {
+    // Each instruction set this CPU has (the cap only changes which kernel runs; every kernel
+    // must give the reference result, so the other test in this file is unaffected).
+    for limit in [Simd::Baseline, Simd::Avx2, Simd::Avx512] {
+        set_simd_limit(limit);
+        if simd_level() == limit {
+            println!("checked {limit:?}");
+            check_all();
+        }
+    }
+    set_simd_limit(Simd::Avx512);
+}
+
+fn check_all() {
+    let dims = [1, 2, 3, 5, 12, 13, 31, 33, 64, 100];
+    for &m in &dims {
+        for &n in &dims {
+            for &k in &[0, 1, 4, 17, 64] {
+                check(m, n, k);
+            }
+        }
+    }
+    // Several depth blocks and more than one block of rows and columns.
+    check(130, 1100, 300);
+    check(257, 65, 513);
+    check(1024, 1, 256);
+}
+
+#[test]
+fn products_split_over_two_threads_match_one_thread() {
+    // Large enough to be split (m·n·k ≥ 2²²), with ragged edges.
+    let a = filled(517, 300, 4);
+    let b = filled(300, 261, 5);
+    let mut one = Array2::<f64>::zeros((517, 261));
+    let mut two = one.clone();
+    set_threads(1);
+    matmul(a.view(), b.view(), &mut one.view_mut(), false);
+    set_threads(2);
+    matmul(a.view(), b.view(), &mut two.view_mut(), false);
+    let wide_a = filled(40, 300, 6);
+    let wide_b = filled(300, 1400, 7);
+    let mut wide_one = Array2::<f64>::zeros((40, 1400));
+    let mut wide_two = wide_one.clone();
+    matmul(
+        wide_a.view(),
+        wide_b.view(),
+        &mut wide_two.view_mut(),
+        false,
+    );
+    set_threads(1);
+    matmul(
+        wide_a.view(),
+        wide_b.view(),
+        &mut wide_one.view_mut(),
+        false,
+    );
+    // The same tiles in the same order per element: bit-identical.
+    assert_eq!(one, two);
+    assert_eq!(wide_one, wide_two);
+    let want = reference(a.view(), b.view());
+    assert!((0..517).all(|i| (0..261).all(|j| (one[[i, j]] - want[(i, j)]).abs() < 1e-11)));
+}
