@@ -280,7 +280,18 @@ impl Predictor {
                 }
             }
         }
-        let mut width = k;
+        let out = crate::kernels::with_simd(|| self.run_steps(a, b, k));
+        let scaled = out as f64 * self.target.sd[0] + self.target.mean[0];
+        Ok(RowPrediction {
+            value: self.encoder.decode_target(scaled),
+            extrapolated,
+        })
+    }
+
+    /// The layers on one encoded row of `width` values in `a` (`b` is the second buffer);
+    /// returns the scaled output.
+    #[inline(always)]
+    fn run_steps(&self, a: &mut [f32], b: &mut [f32], mut width: usize) -> f32 {
         let (mut cur, mut next) = (a, b);
         for step in &self.steps {
             match step {
@@ -290,29 +301,19 @@ impl Predictor {
                     weights,
                     bias,
                 } => {
-                    let out = &mut next[..*outputs];
-                    out.copy_from_slice(bias);
-                    for (r, &x) in cur[..*inputs].iter().enumerate() {
-                        let row = &weights[r * outputs..(r + 1) * outputs];
-                        for (o, &w) in out.iter_mut().zip(row) {
-                            *o += x * w;
-                        }
-                    }
+                    affine_row(&cur[..*inputs], weights, bias, &mut next[..*outputs]);
                     width = *outputs;
-                    std::mem::swap(&mut cur, &mut next);
                 }
-                Step::Act(act) => cur[..width].iter_mut().for_each(|v| *v = act.value(*v)),
-                Step::Prelu(slopes) => cur[..width]
+                Step::Act(act) => act.apply(&cur[..width], &mut next[..width]),
+                Step::Prelu(slopes) => next[..width]
                     .iter_mut()
+                    .zip(&cur[..width])
                     .zip(slopes)
-                    .for_each(|(v, &s)| *v = leaky(*v, s)),
+                    .for_each(|((o, &v), &s)| *o = leaky(v, s)),
             }
+            std::mem::swap(&mut cur, &mut next);
         }
-        let scaled = cur[0] as f64 * self.target.sd[0] + self.target.mean[0];
-        Ok(RowPrediction {
-            value: self.encoder.decode_target(scaled),
-            extrapolated,
-        })
+        cur[0]
     }
 
     /// Predicts every row of a table (columns found by name; extra columns ignored). Each row
@@ -371,4 +372,32 @@ pub struct TableRow {
     pub out_of_range: Vec<String>,
     /// Why the row could not be predicted.
     pub error: Option<String>,
+}
+
+/// out = x·W + bias for one row (W is inputs × outputs, row-major): a dot product with eight
+/// partial sums for a single output, else one scaled row of W added per input.
+#[inline(always)]
+fn affine_row(x: &[f32], weights: &[f32], bias: &[f32], out: &mut [f32]) {
+    if out.len() == 1 {
+        let mut acc = [0.0_f32; 8];
+        let (xs, ws) = (x.chunks_exact(8), weights.chunks_exact(8));
+        let tail: f32 = xs
+            .remainder()
+            .iter()
+            .zip(ws.remainder())
+            .map(|(a, b)| a * b)
+            .sum();
+        for (u, v) in xs.zip(ws) {
+            for l in 0..8 {
+                acc[l] += u[l] * v[l];
+            }
+        }
+        out[0] = bias[0] + tail + acc.iter().sum::<f32>();
+        return;
+    }
+    out.copy_from_slice(bias);
+    let width = out.len();
+    for (&xi, row) in x.iter().zip(weights.chunks_exact(width)) {
+        out.iter_mut().zip(row).for_each(|(o, &w)| *o += xi * w);
+    }
 }

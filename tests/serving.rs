@@ -219,6 +219,32 @@ fn save_and_load_give_bit_identical_predictions() {
 }
 
 #[test]
+fn the_row_predictor_agrees_with_the_training_forward_pass() {
+    // The predictor has its own single-row kernels; the network's batch forward (what training
+    // optimizes) is the reference. Both run in f32: agreement to 1e-5 of the target scale.
+    let model = trained_model();
+    let table = read(&small_csv(40)).unwrap();
+    let mut x = model.encoder.encode_inputs::<f32>(&table, None).unwrap();
+    model.inputs.apply_in_place(&mut x);
+    let mut network = model.network.clone();
+    let scaled = network
+        .forward(x.view(), relume::layer::Pass::Infer)
+        .unwrap()
+        .to_owned();
+    let batch = model.target.invert(scaled.view());
+    let rows = Predictor::new(&model).predict_table(&table).unwrap();
+    let spread = model.target.sd[0];
+    for (r, row) in rows.iter().enumerate() {
+        let want = model.encoder.decode_target(batch[[r, 0]] as f64);
+        let got = row.value.unwrap();
+        assert!(
+            (got - want).abs() <= 1e-5 * spread,
+            "row {r}: {got} vs {want}"
+        );
+    }
+}
+
+#[test]
 fn damaged_files_give_clear_errors() {
     let model = trained_model();
     let text = model.to_json();
