@@ -10,6 +10,7 @@
 
 use crate::error::ConfigError;
 use crate::init::{Draw, Fan, Init};
+use crate::kernels::{for_chunks, with_simd, SPLIT_ELEMENTS};
 use crate::scalar::Scalar;
 use serde::{Deserialize, Serialize};
 use std::fmt;
@@ -306,8 +307,11 @@ impl Activation {
     /// out[i] = f(x[i]) at inference. The variant is chosen once per call, not per element, so
     /// the common rectifiers run as tight, vectorizable loops.
     pub fn apply<F: Scalar>(&self, x: &[F], out: &mut [F]) {
-        fn each<F: Scalar>(x: &[F], out: &mut [F], f: impl Fn(F) -> F) {
-            crate::kernels::with_simd(|| map_into(x, out, f))
+        fn each<F: Scalar>(x: &[F], out: &mut [F], f: impl Fn(F) -> F + Sync + Copy) {
+            for_chunks([out], SPLIT_ELEMENTS, |at, [out]| {
+                let x = &x[at..at + out.len()];
+                with_simd(|| map_into(x, out, f))
+            })
         }
         let zero = F::zero();
         match *self {
@@ -343,17 +347,21 @@ impl Activation {
 
     /// out[i] = g[i]·f'(x[i]): the backward pass of [`Activation::apply`].
     pub fn apply_derivative<F: Scalar>(&self, x: &[F], g: &[F], out: &mut [F]) {
-        fn each<F: Scalar>(x: &[F], g: &[F], out: &mut [F], f: impl Fn(F) -> F) {
-            crate::kernels::with_simd(|| scale_into(x, g, out, f))
+        fn both<F: Scalar>(x: &[F], g: &[F], out: &mut [F], f: impl Fn(F, F) -> F + Sync + Copy) {
+            for_chunks([out], SPLIT_ELEMENTS, |at, [out]| {
+                let (x, g) = (&x[at..at + out.len()], &g[at..at + out.len()]);
+                with_simd(|| zip_into(x, g, out, f))
+            })
+        }
+        fn each<F: Scalar>(x: &[F], g: &[F], out: &mut [F], f: impl Fn(F) -> F + Sync + Copy) {
+            both(x, g, out, |v, gv| gv * f(v))
         }
         let (zero, one) = (F::zero(), F::one());
         match *self {
             Activation::Identity => out.copy_from_slice(g),
-            Activation::Relu => {
-                for ((o, &v), &gv) in out.iter_mut().zip(x).zip(g) {
-                    *o = if v > zero { gv } else { zero };
-                }
-            }
+            // The gradient itself where x > 0 (not g·1, which would turn an infinite g times a
+            // zero slope into NaN).
+            Activation::Relu => both(x, g, out, |v, gv| if v > zero { gv } else { zero }),
             Activation::LeakyRelu { .. }
             | Activation::Prelu { .. }
             | Activation::RandomLeaky { .. } => {
@@ -598,11 +606,11 @@ fn map_into<F: Scalar>(x: &[F], out: &mut [F], f: impl Fn(F) -> F) {
     }
 }
 
-/// out[i] = g[i]·f(x[i]).
+/// out[i] = f(x[i], g[i]).
 #[inline(always)]
-fn scale_into<F: Scalar>(x: &[F], g: &[F], out: &mut [F], f: impl Fn(F) -> F) {
+fn zip_into<F: Scalar>(x: &[F], g: &[F], out: &mut [F], f: impl Fn(F, F) -> F) {
     for ((o, &v), &gv) in out.iter_mut().zip(x).zip(g) {
-        *o = gv * f(v);
+        *o = f(v, gv);
     }
 }
 

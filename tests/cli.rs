@@ -231,6 +231,18 @@ fn bad_inputs_exit_2_with_a_message_naming_the_problem_and_where() {
         err.contains("no column named 'energy'") && err.contains("power_kw"),
         "{err}"
     );
+    let err = fails(&[
+        "train",
+        "--data",
+        DEMO,
+        "--target",
+        "power_kw",
+        "--out",
+        &out,
+        "--threads",
+        "0",
+    ]);
+    assert!(err.contains("--threads"), "{err}");
     let ragged = write("ragged.csv", "a,b,y\n1,2,3\n4,5\n");
     let err = train(&ragged, "y");
     assert!(

@@ -4,7 +4,7 @@
 
 use nalgebra::DMatrix;
 use ndarray::{Array2, ArrayView2};
-use relume::kernels::{matmul, set_simd_limit, set_threads, simd_level, Simd};
+use relume::kernels::{matmul, matmul_bias, set_simd_limit, set_threads, simd_level, Simd};
 
 fn filled(rows: usize, cols: usize, seed: usize) -> Array2<f64> {
     Array2::from_shape_fn((rows, cols), |(i, j)| {
@@ -41,6 +41,22 @@ fn check(m: usize, n: usize, k: usize) {
         }
         let mut c = c0.clone();
         matmul(a, b, &mut c.view_mut(), acc);
+        if !acc {
+            // The bias form: every row of c gets the bias added.
+            let bias = filled(1, n, 9).into_raw_vec_and_offset().0;
+            let mut cb = c0.clone();
+            matmul_bias(a, b, &bias, &mut cb.view_mut());
+            for i in 0..m {
+                for j in 0..n {
+                    let w = want[(i, j)] + bias[j];
+                    let tol = f64::EPSILON * (k as f64 + 3.0) * (bound[(i, j)] + bias[j].abs());
+                    assert!(
+                        (cb[[i, j]] - w).abs() <= tol,
+                        "bias {m}×{k}·{k}×{n} at ({i},{j})"
+                    );
+                }
+            }
+        }
         let af = a.mapv(|v| v as f32);
         let bf = b.mapv(|v| v as f32);
         let (af, bf) = (
@@ -139,6 +155,35 @@ fn products_split_over_two_threads_match_one_thread() {
     // The same tiles in the same order per element: bit-identical.
     assert_eq!(one, two);
     assert_eq!(wide_one, wide_two);
+    // Whole training steps too: every split (products, element-wise loops, bias gradients,
+    // Adam) computes each number exactly as one thread would.
+    let weights = |threads: usize| {
+        set_threads(threads);
+        let x = filled(512, 256, 8).mapv(|v| v as f32);
+        let y = filled(512, 1, 9).mapv(|v| v as f32);
+        let mut net = relume::NetworkPlan::new(256, &[256, 256], relume::Activation::Relu)
+            .build::<f32>(3)
+            .unwrap();
+        let mut grad = Array2::<f32>::zeros((512, 1));
+        let mut adam = relume::Adam::new(1e-3);
+        for _ in 0..5 {
+            net.zero_grads();
+            let out = net.forward(x.view(), relume::layer::Pass::Train).unwrap();
+            relume::Loss::Mse
+                .gradient_into(out, y.view(), grad.view_mut())
+                .unwrap();
+            net.backward_params(grad.view()).unwrap();
+            let (p, g) = net.params_and_grads();
+            relume::Optimizer::step(&mut adam, p, g);
+        }
+        net.params().to_vec()
+    };
+    let (single, double) = (weights(1), weights(2));
+    set_threads(1);
+    assert!(single
+        .iter()
+        .zip(&double)
+        .all(|(a, b)| a.to_bits() == b.to_bits()));
     let want = reference(a.view(), b.view());
     assert!((0..517).all(|i| (0..261).all(|j| (one[[i, j]] - want[(i, j)]).abs() < 1e-11)));
 }

@@ -207,6 +207,10 @@ struct TrainArgs {
     /// Draw the chart's loss axis linearly instead of on a log scale.
     #[arg(long)]
     linear_plot: bool,
+    /// Threads for large matrix products and element-wise loops (default: RELUME_THREADS, or
+    /// 1). Pays off for wide layers and large batches; small networks gain nothing.
+    #[arg(long, value_name = "N", value_parser = clap::value_parser!(u16).range(1..=64))]
+    threads: Option<u16>,
 }
 
 #[derive(clap::ValueEnum, Clone, Copy, Debug)]
@@ -351,6 +355,9 @@ impl Observer<f32> for Progress {
 }
 
 fn train(a: TrainArgs) -> Result<(), Failure> {
+    if let Some(n) = a.threads {
+        relume::kernels::set_threads(usize::from(n));
+    }
     let table = read_table(&a.table)?;
     let spec = EncoderSpec {
         target: a.columns.target.clone(),

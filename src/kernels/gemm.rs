@@ -29,6 +29,8 @@ pub(crate) struct Mat<F> {
 }
 
 /// The output operand, as [`Mat`] but writable. No other live reference aliases its elements.
+/// `bias`, when not null, points at `cols` values added to every row when the product
+/// overwrites (does not accumulate into) C.
 #[derive(Clone, Copy, Debug)]
 pub(crate) struct MatMut<F> {
     pub ptr: *mut F,
@@ -36,6 +38,7 @@ pub(crate) struct MatMut<F> {
     pub cols: usize,
     pub rs: isize,
     pub cs: isize,
+    pub bias: *const F,
 }
 
 // SAFETY: the operands are plain addresses of `F: Send + Sync` data; callers hand disjoint
@@ -95,6 +98,7 @@ impl<F> MatMut<F> {
             cols: self.cols,
             rs: self.rs,
             cs: self.cs,
+            bias: self.bias as *const G,
         }
     }
 
@@ -116,7 +120,28 @@ impl<F> MatMut<F> {
                 .wrapping_offset(r0 as isize * self.rs + c0 as isize * self.cs),
             rows,
             cols,
+            bias: if self.bias.is_null() {
+                self.bias
+            } else {
+                self.bias.wrapping_add(c0)
+            },
             ..*self
+        }
+    }
+
+    /// The bias of column j, or zero.
+    ///
+    /// # Safety
+    /// `j < cols`.
+    #[inline(always)]
+    unsafe fn bias_at(&self, j: usize) -> F
+    where
+        F: Scalar,
+    {
+        if self.bias.is_null() {
+            F::zero()
+        } else {
+            *self.bias.add(j)
         }
     }
 }
@@ -125,7 +150,7 @@ impl<F> MatMut<F> {
 /// of KC×NR stays in the 32–48 KiB L1 data cache.
 const KC: usize = 256;
 
-/// c = a·b, or c += a·b when `accumulate`, on this thread.
+/// c = a·b (+ the bias row of `c`), or c += a·b when `accumulate`, on this thread.
 ///
 /// # Safety
 /// `a` is m×k, `b` k×n and `c` m×n, each describing valid memory as [`Mat`] and [`MatMut`]
@@ -337,16 +362,18 @@ unsafe fn tile<V: Lanes, const MR: usize, const NV: usize>(
         }
     }
     if c.rows == MR && c.cols == nr && c.cs == 1 {
+        let mut bias = [V::zero(); NV];
+        if overwrite && !c.bias.is_null() {
+            for (v, slot) in bias.iter_mut().enumerate() {
+                *slot = V::load(c.bias.add(v * w));
+            }
+        }
         for (i, row) in t.iter().enumerate() {
             let out = c.at(i, 0);
             for (v, &acc) in row.iter().enumerate() {
                 let o = out.add(v * w);
-                let sum = if overwrite {
-                    acc
-                } else {
-                    V::add(V::load(o), acc)
-                };
-                V::store(sum, o);
+                let base = if overwrite { bias[v] } else { V::load(o) };
+                V::store(V::add(base, acc), o);
             }
         }
         return;
@@ -361,7 +388,7 @@ unsafe fn tile<V: Lanes, const MR: usize, const NV: usize>(
     for (i, row) in buf.iter().enumerate().take(c.rows) {
         for (j, &v) in row.iter().enumerate().take(c.cols) {
             let o = c.at(i, j);
-            *o = if overwrite { v } else { *o + v };
+            *o = if overwrite { c.bias_at(j) + v } else { *o + v };
         }
     }
 }
@@ -452,7 +479,9 @@ unsafe fn direct<F: Scalar, const FUSED: bool>(
                 // SAFETY: row i of C has n contiguous elements; rows of B likewise.
                 let out = std::slice::from_raw_parts_mut(c.at(i, 0), n);
                 if !accumulate {
-                    out.fill(F::zero());
+                    for (j, o) in out.iter_mut().enumerate() {
+                        *o = c.bias_at(j);
+                    }
                 }
                 for p in 0..k {
                     let s = *a.at(i, p);
@@ -468,7 +497,7 @@ unsafe fn direct<F: Scalar, const FUSED: bool>(
                 // SAFETY: column j of C has m contiguous elements; columns of A likewise.
                 let out = std::slice::from_raw_parts_mut(c.at(0, j), m);
                 if !accumulate {
-                    out.fill(F::zero());
+                    out.fill(c.bias_at(j));
                 }
                 for p in 0..k {
                     let s = *b.at(p, j);
@@ -493,7 +522,11 @@ unsafe fn direct<F: Scalar, const FUSED: bool>(
                         })
                     };
                     let o = c.at(i, j);
-                    *o = if accumulate { *o + sum } else { sum };
+                    *o = if accumulate {
+                        *o + sum
+                    } else {
+                        c.bias_at(j) + sum
+                    };
                 }
             }
         }

@@ -53,6 +53,31 @@ pub fn matmul<F: Scalar>(
     c: &mut ArrayViewMut2<'_, F>,
     accumulate: bool,
 ) {
+    product(a, b, None, c, accumulate);
+}
+
+/// c = a·b + bias, the bias (length n) added to every row: the affine layer's forward pass
+/// in one sweep over c.
+///
+/// # Panics
+/// If the shapes do not agree.
+pub fn matmul_bias<F: Scalar>(
+    a: ArrayView2<'_, F>,
+    b: ArrayView2<'_, F>,
+    bias: &[F],
+    c: &mut ArrayViewMut2<'_, F>,
+) {
+    assert_eq!(bias.len(), b.ncols(), "bias length");
+    product(a, b, Some(bias), c, false);
+}
+
+fn product<F: Scalar>(
+    a: ArrayView2<'_, F>,
+    b: ArrayView2<'_, F>,
+    bias: Option<&[F]>,
+    c: &mut ArrayViewMut2<'_, F>,
+    accumulate: bool,
+) {
     let (m, k) = a.dim();
     let n = b.ncols();
     assert!(
@@ -75,6 +100,7 @@ pub fn matmul<F: Scalar>(
         cols: n,
         rs: c.strides()[0],
         cs: c.strides()[1],
+        bias: bias.map_or(std::ptr::null(), |b| b.as_ptr()),
     };
     let threads = threads();
     let parts = if m * n * k >= SPLIT_WORK { threads } else { 1 };
@@ -86,9 +112,9 @@ pub fn matmul<F: Scalar>(
     let part = |p: usize| {
         let start = p * chunk;
         let len = chunk.min(side - start);
-        // SAFETY: `a`, `b`, `c` come from live views with the checked shapes; blocks of
-        // different parts cover disjoint rows (or columns) of C, and `pool::run` returns only
-        // after every part is done, while the views are still borrowed.
+        // SAFETY: `a`, `b`, `c` (and the bias) come from live views with the checked shapes;
+        // blocks of different parts cover disjoint rows (or columns) of C, and `pool::run`
+        // returns only after every part is done, while the views are still borrowed.
         unsafe {
             if split_rows {
                 gemm::product(
@@ -110,10 +136,55 @@ pub fn matmul<F: Scalar>(
     pool::run(threads, parts, &part);
 }
 
-/// Runs `body(part)` for each part in `0..parts`, spread over the threads set by
-/// [`set_threads`]; `body` must only touch data of its own part.
-pub fn for_parts(parts: usize, body: &(dyn Fn(usize) + Sync + '_)) {
-    pool::run(threads(), parts, body);
+/// Element-wise loops shorter than this stay on one thread (common practice, no source: about
+/// 20–40 µs of work, well above the cost of waking a helper).
+pub(crate) const SPLIT_ELEMENTS: usize = 1 << 15;
+
+/// A pointer that may be sent to the helper threads (see [`for_chunks`]).
+struct SendPtr<T>(*mut T);
+impl<T> Clone for SendPtr<T> {
+    fn clone(&self) -> Self {
+        *self
+    }
+}
+impl<T> Copy for SendPtr<T> {}
+// SAFETY: only used by `for_chunks`, which hands each thread a disjoint range.
+unsafe impl<T: Send> Send for SendPtr<T> {}
+unsafe impl<T: Send> Sync for SendPtr<T> {}
+
+/// Calls `body(start, chunks)` on consecutive ranges `start..start + len` of `N` slices of
+/// equal length (the chunks are those ranges of each slice), one range per thread when the
+/// slices have at least twice `min_len` elements and [`set_threads`] allows more than one.
+pub(crate) fn for_chunks<T: Send, const N: usize>(
+    slices: [&mut [T]; N],
+    min_len: usize,
+    body: impl Fn(usize, [&mut [T]; N]) + Sync,
+) {
+    let len = slices.first().map_or(0, |s| s.len());
+    assert!(
+        slices.iter().all(|s| s.len() == len),
+        "slices of equal length"
+    );
+    let threads = threads();
+    let parts = threads.min(len / min_len.max(1));
+    if parts <= 1 {
+        body(0, slices);
+        return;
+    }
+    // Chunks of whole 64-byte lines, so threads do not write to the same cache line.
+    let line = (64 / std::mem::size_of::<T>().max(1)).max(1);
+    let chunk = len.div_ceil(parts).div_ceil(line) * line;
+    let ptrs = slices.map(|s| SendPtr(s.as_mut_ptr()));
+    let part = |p: usize| {
+        let start = (p * chunk).min(len);
+        let end = (start + chunk).min(len);
+        // SAFETY: every part gets a disjoint range of each slice, the slices are exclusively
+        // borrowed for this call, and `pool::run` returns only when all parts are done.
+        let chunks = ptrs
+            .map(|ptr| unsafe { std::slice::from_raw_parts_mut(ptr.0.add(start), end - start) });
+        body(start, chunks);
+    };
+    pool::run(threads, len.div_ceil(chunk), &part);
 }
 
 /// Instruction sets the kernels can run with, from least to most capable.

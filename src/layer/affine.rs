@@ -4,7 +4,7 @@ use super::{check_width, Layer, LayerSpec, Pass, Role, TensorSpec};
 use crate::buffer::Buffer;
 use crate::error::ConfigError;
 use crate::init::{Init, Rng};
-use crate::kernels::matmul;
+use crate::kernels::{for_chunks, matmul, matmul_bias, with_simd, SPLIT_ELEMENTS};
 use crate::scalar::Scalar;
 use ndarray::{ArrayView1, ArrayView2, ArrayViewMut1, ArrayViewMut2, Axis};
 
@@ -102,11 +102,8 @@ impl<F: Scalar> Layer<F> for Affine<F> {
     fn forward(&mut self, params: &[F], input: ArrayView2<'_, F>, _pass: Pass) {
         let (w, b) = self.split(params);
         self.out.reshape(input.nrows(), self.outputs);
-        let mut out = self.out.view_mut();
-        out.rows_mut()
-            .into_iter()
-            .for_each(|mut row| row.assign(&b));
-        matmul(input, w, &mut out, true);
+        let bias = b.to_slice().expect("bias slice is contiguous");
+        matmul_bias(input, w, bias, &mut self.out.view_mut());
     }
 
     fn output(&self) -> ArrayView2<'_, F> {
@@ -142,9 +139,17 @@ impl<F: Scalar> Layer<F> for Affine<F> {
         matmul(input.t(), grad_out, &mut dw, true);
         match (grad_out.as_slice(), db.as_slice_mut()) {
             (Some(g), Some(db)) => {
-                for row in g.chunks_exact(self.outputs) {
-                    db.iter_mut().zip(row).for_each(|(d, &v)| *d += v);
-                }
+                // Column sums; large batches split the columns over the threads.
+                let outputs = self.outputs;
+                let min_cols = (SPLIT_ELEMENTS / g.len().div_ceil(outputs).max(1)).max(16);
+                for_chunks([db], min_cols, |at, [db]| {
+                    with_simd(|| {
+                        for row in g.chunks_exact(outputs) {
+                            let row = &row[at..at + db.len()];
+                            db.iter_mut().zip(row).for_each(|(d, &v)| *d += v);
+                        }
+                    })
+                });
             }
             _ => {
                 for row in grad_out.axis_iter(Axis(0)) {

@@ -2,6 +2,7 @@
 //! weight decay (AdamW, Loshchilov & Hutter 2019) as options.
 
 use super::{fit_state, flush_tiny, zero_entries, Optimizer};
+use crate::kernels::{for_chunks, with_simd, SPLIT_ELEMENTS};
 use crate::scalar::Scalar;
 
 /// Adam: per-parameter steps from bias-corrected first and second moment estimates,
@@ -83,17 +84,24 @@ impl<F: Scalar> Optimizer<F> for Adam<F> {
         }
         let (m_state, v_state, v_max) = (&mut self.m, &mut self.v, &mut self.v_max);
         let step = lr * inv_c1;
-        crate::kernels::with_simd(|| {
-            if !self.amsgrad {
-                // One pass over the four vectors: moments, then the step.
-                let state = m_state.iter_mut().zip(v_state.iter_mut());
-                for ((p, &g), (m, v)) in params.iter_mut().zip(grads).zip(state) {
-                    *m = flush_tiny(b1 * *m + (one - b1) * g);
-                    *v = flush_tiny(b2 * *v + (one - b2) * g * g);
-                    *p -= step * *m / ((*v * inv_c2).sqrt() + eps);
-                }
-                return;
-            }
+        if !self.amsgrad {
+            // One pass over the four vectors: moments, then the step (split over the threads
+            // set by `kernels::set_threads` for large networks).
+            let chunks = [params, &mut m_state[..], &mut v_state[..]];
+            for_chunks(chunks, SPLIT_ELEMENTS, |at, [params, m_state, v_state]| {
+                let grads = &grads[at..at + params.len()];
+                with_simd(|| {
+                    let state = m_state.iter_mut().zip(v_state.iter_mut());
+                    for ((p, &g), (m, v)) in params.iter_mut().zip(grads).zip(state) {
+                        *m = flush_tiny(b1 * *m + (one - b1) * g);
+                        *v = flush_tiny(b2 * *v + (one - b2) * g * g);
+                        *p -= step * *m / ((*v * inv_c2).sqrt() + eps);
+                    }
+                })
+            });
+            return;
+        }
+        with_simd(|| {
             for ((m, v), &g) in m_state.iter_mut().zip(v_state.iter_mut()).zip(grads) {
                 *m = flush_tiny(b1 * *m + (one - b1) * g);
                 *v = flush_tiny(b2 * *v + (one - b2) * g * g);
