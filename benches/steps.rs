@@ -1,8 +1,11 @@
-//! Training steps, inference and model save/load for the perf-report cases.
+//! Training steps, inference and model save/load for the perf-report cases, and the matrix
+//! product beside ndarray's `general_mat_mul` (matrixmultiply) on the step's shapes.
 
 use criterion::{criterion_group, criterion_main, Criterion};
+use ndarray::linalg::general_mat_mul;
 use ndarray::Array2;
 use relume::data::{EncoderSpec, ReadOptions, Table};
+use relume::kernels::matmul;
 use relume::layer::Pass;
 use relume::monitor::MonitorConfig;
 use relume::predict::Cell;
@@ -41,6 +44,29 @@ fn step(c: &mut Criterion, name: &str, widths: &[usize], batch: usize) {
     });
 }
 
+/// The three products of a 256-wide layer at batch 256 (forward, weight gradient, input
+/// gradient), ours and matrixmultiply's.
+fn products(c: &mut Criterion) {
+    let (x, w, g) = (inputs(256, 256), inputs(256, 256), inputs(256, 256));
+    let mut out = Array2::<f32>::zeros((256, 256));
+    c.bench_function("product_256_ours", |b| {
+        b.iter(|| {
+            matmul(x.view(), w.view(), &mut out.view_mut(), false);
+            matmul(x.t(), g.view(), &mut out.view_mut(), false);
+            matmul(g.view(), w.t(), &mut out.view_mut(), false);
+            black_box(out[(0, 0)])
+        })
+    });
+    c.bench_function("product_256_matrixmultiply", |b| {
+        b.iter(|| {
+            general_mat_mul(1.0, &x, &w, 0.0, &mut out);
+            general_mat_mul(1.0, &x.t(), &g, 0.0, &mut out);
+            general_mat_mul(1.0, &g, &w.t(), 0.0, &mut out);
+            black_box(out[(0, 0)])
+        })
+    });
+}
+
 fn small_model() -> Model {
     let mut csv = String::from("a,b,c,d,e,f,g,h,i,j,y\n");
     for r in 0..300 {
@@ -66,6 +92,7 @@ fn small_model() -> Model {
 fn benches(c: &mut Criterion) {
     step(c, "tabular_b32", &[10, 64, 64, 1], 32);
     step(c, "wide_b256", &[256, 256, 256, 256, 1], 256);
+    products(c);
     let model = small_model();
     let predictor = Predictor::new(&model);
     let mut scratch = predictor.scratch();
