@@ -304,7 +304,7 @@ impl Activation {
         matches!(self, Activation::RandomLeaky { .. })
     }
 
-    /// out[i] = f(x[i]) at inference. The variant is chosen once per call, not per element, so
+    /// `out[i] = f(x[i])` at inference. The variant is chosen once per call, not per element, so
     /// the common rectifiers run as tight, vectorizable loops.
     pub fn apply<F: Scalar>(&self, x: &[F], out: &mut [F]) {
         fn each<F: Scalar>(x: &[F], out: &mut [F], f: impl Fn(F) -> F + Sync + Copy) {
@@ -345,7 +345,7 @@ impl Activation {
         }
     }
 
-    /// out[i] = g[i]·f'(x[i]): the backward pass of [`Activation::apply`].
+    /// `out[i] = g[i]·f'(x[i])`: the backward pass of [`Activation::apply`].
     pub fn apply_derivative<F: Scalar>(&self, x: &[F], g: &[F], out: &mut [F]) {
         fn both<F: Scalar>(x: &[F], g: &[F], out: &mut [F], f: impl Fn(F, F) -> F + Sync + Copy) {
             for_chunks([out], SPLIT_ELEMENTS, |at, [out]| {

@@ -1,9 +1,9 @@
 //! Matrix products and the SIMD dispatch for the hot loops: one place, so the layers never
 //! depend on how a product is computed.
 //!
-//! The product is our own ([`gemm`]): packed and register-tiled, chosen at run time for
+//! The product is our own (module `gemm`): packed and register-tiled, chosen at run time for
 //! AVX-512, AVX2 + FMA or baseline x86-64, allocation-free after warm-up, and split over helper
-//! threads ([`pool`]) when [`set_threads`] asks for more than one and the product is large.
+//! threads (module `pool`) when [`set_threads`] asks for more than one and the product is large.
 
 mod gemm;
 mod pool;
@@ -20,9 +20,10 @@ static THREADS: AtomicUsize = AtomicUsize::new(0);
 /// microseconds (common practice, no source; 2²² is about 60 µs of work here).
 const SPLIT_WORK: usize = 1 << 22;
 
-/// Sets how many threads large matrix products (and [`for_parts`] loops) may use, from 1 to
-/// 64. The default is 1, or the `RELUME_THREADS` environment variable: inside a service, one
-/// thread per request is usually the better use of the cores.
+/// Sets how many threads large matrix products (and the large element-wise loops of a training
+/// step) may use, from 1 to 64. The default is 1, or the `RELUME_THREADS` environment variable:
+/// inside a service, one thread per request is usually the better use of the cores. Results do
+/// not depend on the thread count: every number is computed as one thread would.
 pub fn set_threads(threads: usize) {
     THREADS.store(threads.clamp(1, 64), Ordering::Relaxed);
 }
