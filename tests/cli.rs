@@ -243,6 +243,14 @@ fn bad_inputs_exit_2_with_a_message_naming_the_problem_and_where() {
         "0",
     ]);
     assert!(err.contains("--threads"), "{err}");
+    let o = Command::new(env!("CARGO_BIN_EXE_relume"))
+        .args(["inspect", "--model", &out])
+        .env("RELUME_THREADS", "two")
+        .output()
+        .unwrap();
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(2), "{err}");
+    assert!(err.contains("RELUME_THREADS"), "{err}");
     let ragged = write("ragged.csv", "a,b,y\n1,2,3\n4,5\n");
     let err = train(&ragged, "y");
     assert!(

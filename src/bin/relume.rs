@@ -289,6 +289,10 @@ fn main() -> ExitCode {
         eprintln!("relume: internal error: {info}");
     }));
     let cli = Cli::parse();
+    if let Err(message) = check_thread_variable() {
+        eprintln!("relume: {message}");
+        return ExitCode::from(2);
+    }
     let outcome = std::panic::catch_unwind(|| match cli.command {
         Command::Train(a) => train(*a),
         Command::Predict(a) => predict(a),
@@ -308,6 +312,20 @@ fn main() -> ExitCode {
             ExitCode::from(1)
         }
         Err(_) => ExitCode::from(1),
+    }
+}
+
+/// The library reads `RELUME_THREADS` leniently (falling back to one thread); the command
+/// refuses a value it cannot use, so a typo does not go unnoticed.
+fn check_thread_variable() -> Result<(), String> {
+    match std::env::var("RELUME_THREADS") {
+        Ok(v) => match v.trim().parse::<usize>() {
+            Ok(n) if (1..=64).contains(&n) => Ok(()),
+            _ => Err(format!(
+                "RELUME_THREADS={v:?}: expected a whole number from 1 to 64"
+            )),
+        },
+        Err(_) => Ok(()),
     }
 }
 
