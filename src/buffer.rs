@@ -51,6 +51,16 @@ impl<F: Scalar> Buffer<F> {
     pub fn copy_from(&mut self, source: ArrayView2<'_, F>) {
         let (r, c) = source.dim();
         self.reshape(r, c);
-        self.view_mut().assign(&source);
+        match source.as_slice() {
+            // Contiguous rows: a plain copy, split over the threads for large batches (each
+            // thread then holds in its cache the rows it multiplies next).
+            Some(src) => {
+                let dst = &mut self.data[..r * c];
+                crate::kernels::for_chunks([dst], crate::kernels::SPLIT_ELEMENTS, |at, [d]| {
+                    d.copy_from_slice(&src[at..at + d.len()])
+                });
+            }
+            None => self.view_mut().assign(&source),
+        }
     }
 }

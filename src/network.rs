@@ -164,7 +164,10 @@ impl<F: Scalar> Network<F> {
 
     /// Sets every gradient to zero.
     pub fn zero_grads(&mut self) {
-        self.grads.fill(F::zero());
+        let grads = &mut self.grads[..];
+        crate::kernels::for_chunks([grads], crate::kernels::SPLIT_ELEMENTS, |_, [g]| {
+            g.fill(F::zero())
+        });
     }
 
     /// Where each parameter tensor lives in the flat vectors.
