@@ -126,7 +126,7 @@ fn check_all() {
 
 #[test]
 fn products_split_over_two_threads_match_one_thread() {
-    // Large enough to be split (m·n·k ≥ 2²²), with ragged edges.
+    // Large enough to be split (m·n·k ≥ 2¹⁸), with ragged edges.
     let a = filled(517, 300, 4);
     let b = filled(300, 261, 5);
     let mut one = Array2::<f64>::zeros((517, 261));
