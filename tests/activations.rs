@@ -289,3 +289,38 @@ fn f32_kernels_stay_close_to_the_f64_reference() {
     assert!(f32::NAN.kernel_exp().is_nan());
     assert_eq!((-1e4_f32).kernel_exp_m1(), -1.0);
 }
+
+#[test]
+fn slice_kernels_give_the_same_bits_on_every_instruction_set() {
+    // The element-wise kernels use no fused multiply-add, so each lane computes exactly the
+    // scalar IEEE operations whatever the vector width: results must not depend on the CPU.
+    use relume::kernels::{set_simd_limit, simd_level, Simd};
+    let x: Vec<f32> = (0..4099).map(|i| (i as f32 - 2049.0) * 0.0123).collect();
+    let g: Vec<f32> = (0..4099)
+        .map(|i| ((i * 37) % 101) as f32 / 50.0 - 1.0)
+        .collect();
+    let run = |act: Activation| {
+        let (mut y, mut d) = (vec![0.0_f32; x.len()], vec![0.0_f32; x.len()]);
+        act.apply(&x, &mut y);
+        act.apply_derivative(&x, &g, &mut d);
+        (y, d)
+    };
+    for act in family() {
+        set_simd_limit(Simd::Baseline);
+        let reference = run(act);
+        for limit in [Simd::Avx2, Simd::Avx512] {
+            set_simd_limit(limit);
+            if simd_level() != limit {
+                continue;
+            }
+            let (y, d) = run(act);
+            let same =
+                |a: &[f32], b: &[f32]| a.iter().zip(b).all(|(u, v)| u.to_bits() == v.to_bits());
+            assert!(
+                same(&y, &reference.0) && same(&d, &reference.1),
+                "{act:?} on {limit:?}"
+            );
+        }
+    }
+    set_simd_limit(Simd::Avx512);
+}

@@ -235,12 +235,23 @@ pub fn simd_level() -> Simd {
 pub(crate) fn with_simd<R>(body: impl FnOnce() -> R) -> R {
     #[cfg(target_arch = "x86_64")]
     {
-        if simd_level() >= Simd::Avx2 {
-            // SAFETY: the running CPU supports AVX2 and FMA (checked just above), the only
-            // requirement of `with_avx2`.
-            return unsafe { with_avx2(body) };
+        match simd_level() {
+            // SAFETY: the running CPU supports AVX-512F, AVX2 and FMA (checked by
+            // `simd_level`), the only requirement of `with_avx512`.
+            Simd::Avx512 => return unsafe { with_avx512(body) },
+            // SAFETY: as above, for AVX2 and FMA.
+            Simd::Avx2 => return unsafe { with_avx2(body) },
+            Simd::Baseline => {}
         }
     }
+    body()
+}
+
+/// # Safety
+/// The CPU must support AVX-512F, AVX2 and FMA.
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx512f,avx2,fma")]
+unsafe fn with_avx512<R>(body: impl FnOnce() -> R) -> R {
     body()
 }
 
