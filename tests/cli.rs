@@ -231,17 +231,12 @@ fn bad_inputs_exit_2_with_a_message_naming_the_problem_and_where() {
         err.contains("no column named 'energy'") && err.contains("power_kw"),
         "{err}"
     );
-    let err = fails(&[
-        "train",
-        "--data",
-        DEMO,
-        "--target",
-        "power_kw",
-        "--out",
-        &out,
-        "--threads",
-        "0",
-    ]);
+    let bad_flag = |flag: &str, value: &str| {
+        fails(&[
+            "train", "--data", DEMO, "--target", "power_kw", "--out", &out, flag, value,
+        ])
+    };
+    let err = bad_flag("--threads", "0");
     assert!(err.contains("--threads"), "{err}");
     let o = Command::new(env!("CARGO_BIN_EXE_relume"))
         .args(["inspect", "--model", &out])
@@ -274,21 +269,9 @@ fn bad_inputs_exit_2_with_a_message_naming_the_problem_and_where() {
         err.contains("absent.csv") && err.contains("cannot open"),
         "{err}"
     );
-    let err = fails(&[
-        "train", "--data", DEMO, "--target", "power_kw", "--out", &out, "--speed", "11",
-    ]);
+    let err = bad_flag("--speed", "11");
     assert!(err.contains("--speed"), "{err}");
-    let err = fails(&[
-        "train",
-        "--data",
-        DEMO,
-        "--target",
-        "power_kw",
-        "--out",
-        &out,
-        "--activation",
-        "relu9",
-    ]);
+    let err = bad_flag("--activation", "relu9");
     assert!(err.contains("relu9"), "{err}");
     let broken = write(
         "broken.json",

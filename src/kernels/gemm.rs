@@ -72,6 +72,17 @@ impl<F> Mat<F> {
         self.ptr.offset(i as isize * self.rs + j as isize * self.cs)
     }
 
+    /// The transpose (no data moves).
+    fn t(self) -> Self {
+        Mat {
+            rows: self.cols,
+            cols: self.rows,
+            rs: self.cs,
+            cs: self.rs,
+            ..self
+        }
+    }
+
     /// Rows `r0..r0 + rows` and columns `c0..c0 + cols` (must lie inside the matrix).
     pub fn block(&self, r0: usize, rows: usize, c0: usize, cols: usize) -> Self {
         debug_assert!(r0 + rows <= self.rows && c0 + cols <= self.cols);
@@ -311,11 +322,11 @@ unsafe fn blocked<V: Lanes, const MR: usize, const NV: usize>(
         let nc = nc_max.min(n - jc);
         for pc in (0..k).step_by(KC) {
             let kc = KC.min(k - pc);
-            pack_b(b.block(pc, kc, jc, nc), nr_tile, b_pack);
+            pack_strips(b.block(pc, kc, jc, nc), nr_tile, b_pack);
             let overwrite = pc == 0 && !accumulate;
             for ic in (0..m).step_by(mc_max) {
                 let mc = mc_max.min(m - ic);
-                pack_a(a.block(ic, mc, pc, kc), MR, a_pack);
+                pack_strips(a.block(ic, mc, pc, kc).t(), MR, a_pack);
                 for j0 in (0..nc).step_by(nr_tile) {
                     let b_strip = b_pack.as_ptr().add(j0 * kc);
                     let nr = nr_tile.min(nc - j0);
@@ -396,54 +407,29 @@ unsafe fn tile<V: Lanes, const MR: usize, const NV: usize>(
 /// The widest register tile, in elements (AVX-512 f32: 2 registers of 16).
 const MAX_NR: usize = 32;
 
-/// Packs a kc×nc block of B into strips of `width` columns: strip s holds, for each depth p,
-/// the `width` values b[p, s·width..] side by side (zeros past the last column).
+/// Packs a block into strips of `width` columns: strip s holds, for each row p, the `width`
+/// values m[p, s·width..] side by side (zeros past the last column). A kc×nc block of B is
+/// packed as it is; an mc×kc block of A is packed transposed, giving strips of rows.
 #[inline(always)]
-unsafe fn pack_b<F: Scalar>(b: Mat<F>, width: usize, out: &mut [F]) {
-    let (kc, nc) = (b.rows, b.cols);
-    for (s, strip) in out[..nc.div_ceil(width) * kc * width]
-        .chunks_exact_mut(kc * width)
+unsafe fn pack_strips<F: Scalar>(m: Mat<F>, width: usize, out: &mut [F]) {
+    let (rows, cols) = (m.rows, m.cols);
+    for (s, strip) in out[..cols.div_ceil(width) * rows * width]
+        .chunks_exact_mut(rows * width)
         .enumerate()
     {
         let j0 = s * width;
-        let nr = width.min(nc - j0);
+        let n = width.min(cols - j0);
         for (p, dst) in strip.chunks_exact_mut(width).enumerate() {
-            if b.cs == 1 {
-                // SAFETY: row p of the block has nc contiguous elements from column 0.
-                let src = std::slice::from_raw_parts(b.at(p, j0), nr);
-                dst[..nr].copy_from_slice(src);
+            if m.cs == 1 {
+                // SAFETY: row p of the block has `cols` contiguous elements from column 0.
+                let src = std::slice::from_raw_parts(m.at(p, j0), n);
+                dst[..n].copy_from_slice(src);
             } else {
-                for (j, d) in dst[..nr].iter_mut().enumerate() {
-                    *d = *b.at(p, j0 + j);
+                for (j, d) in dst[..n].iter_mut().enumerate() {
+                    *d = *m.at(p, j0 + j);
                 }
             }
-            dst[nr..].fill(F::zero());
-        }
-    }
-}
-
-/// Packs an mc×kc block of A into strips of `height` rows: strip r holds, for each depth p,
-/// the `height` values a[r·height.., p] side by side (zeros past the last row).
-#[inline(always)]
-unsafe fn pack_a<F: Scalar>(a: Mat<F>, height: usize, out: &mut [F]) {
-    let (mc, kc) = (a.rows, a.cols);
-    for (r, strip) in out[..mc.div_ceil(height) * kc * height]
-        .chunks_exact_mut(kc * height)
-        .enumerate()
-    {
-        let i0 = r * height;
-        let mr = height.min(mc - i0);
-        for (p, dst) in strip.chunks_exact_mut(height).enumerate() {
-            if a.rs == 1 {
-                // SAFETY: column p of the block has mc contiguous elements from row 0.
-                let src = std::slice::from_raw_parts(a.at(i0, p), mr);
-                dst[..mr].copy_from_slice(src);
-            } else {
-                for (i, d) in dst[..mr].iter_mut().enumerate() {
-                    *d = *a.at(i0 + i, p);
-                }
-            }
-            dst[mr..].fill(F::zero());
+            dst[n..].fill(F::zero());
         }
     }
 }
