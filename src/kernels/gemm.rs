@@ -3,9 +3,10 @@
 //! packing for products too thin to fill a tile. The packing space is a grow-only buffer per
 //! thread, so a product allocates nothing once its thread has seen its largest shapes.
 //!
-//! The register tile is plain Rust over fixed-size arrays; it is compiled three times, for
-//! AVX-512, for AVX2 + FMA and for baseline x86-64 (or the build target elsewhere), and the
-//! variant is chosen at run time. Each variant gets the tile shape that fits its registers.
+//! The register tile is written once, generic over a SIMD register type (`simd::Lanes`), and
+//! instantiated for AVX-512, for AVX2 + FMA and for baseline x86-64 (one number per "register"
+//! elsewhere); the variant is chosen at run time, each with the tile shape that fits its
+//! register file.
 
 use crate::scalar::Scalar;
 use std::any::TypeId;
@@ -281,7 +282,7 @@ fn madd<F: Scalar, const FUSED: bool>(x: F, y: F, z: F) -> F {
     }
 }
 
-/// Grow-only packing space of this thread, 64-byte aligned.
+/// One 64-byte-aligned line of packing space.
 #[repr(C, align(64))]
 #[derive(Clone, Copy)]
 struct Line([u8; 64]);
@@ -358,6 +359,8 @@ unsafe fn tile<V: Lanes, const MR: usize, const NV: usize>(
 ) {
     let w = V::WIDTH;
     let nr = NV * w;
+    // The stack buffer for partial tiles below holds MAX_NR columns (folded at compile time).
+    assert!(nr <= MAX_NR, "register tile wider than MAX_NR");
     let mut t = [[V::zero(); NV]; MR];
     for p in 0..kc {
         let mut bv = [V::zero(); NV];
