@@ -174,43 +174,60 @@ pub(crate) unsafe fn product<F: Scalar>(a: Mat<F>, b: Mat<F>, c: MatMut<F>, accu
     }
     if TypeId::of::<F>() == TypeId::of::<f32>() {
         // SAFETY: F is f32, so the casts change nothing.
-        product_f32(a.cast(), b.cast(), c.cast(), accumulate)
+        tiled::<f32>(a.cast(), b.cast(), c.cast(), accumulate)
     } else if TypeId::of::<F>() == TypeId::of::<f64>() {
         // SAFETY: F is f64, as above.
-        product_f64(a.cast(), b.cast(), c.cast(), accumulate)
+        tiled::<f64>(a.cast(), b.cast(), c.cast(), accumulate)
     } else {
         // Another `Scalar` type: no tile for it, the plain loops still give the right answer.
         direct::<F, false>(a, b, c, accumulate)
     }
 }
 
-unsafe fn product_f32(a: Mat<f32>, b: Mat<f32>, c: MatMut<f32>, accumulate: bool) {
+/// The register types a number type has a tile for.
+trait Registers: Scalar {
+    /// A 512-bit register of these numbers.
     #[cfg(target_arch = "x86_64")]
-    {
-        use simd::{X128, Y256, Z512};
-        // Tiles that fit the register file: 32 zmm (24 accumulators), 16 ymm (12), 16 xmm (8).
-        match isa() {
-            Isa::Avx512 => with_avx512::<Z512, 12, 2>(a, b, c, accumulate),
-            Isa::Avx2 => with_avx2::<Y256, 6, 2>(a, b, c, accumulate),
-            Isa::Baseline => dispatch::<X128, 4, 2>(a, b, c, accumulate),
-        }
-    }
-    #[cfg(not(target_arch = "x86_64"))]
-    dispatch::<One<f32>, 4, 4>(a, b, c, accumulate)
+    type Z: Lanes<Elem = Self>;
+    /// A 256-bit register.
+    #[cfg(target_arch = "x86_64")]
+    type Y: Lanes<Elem = Self>;
+    /// A 128-bit register.
+    #[cfg(target_arch = "x86_64")]
+    type X: Lanes<Elem = Self>;
 }
 
-unsafe fn product_f64(a: Mat<f64>, b: Mat<f64>, c: MatMut<f64>, accumulate: bool) {
+impl Registers for f32 {
+    #[cfg(target_arch = "x86_64")]
+    type Z = simd::Z512;
+    #[cfg(target_arch = "x86_64")]
+    type Y = simd::Y256;
+    #[cfg(target_arch = "x86_64")]
+    type X = simd::X128;
+}
+
+impl Registers for f64 {
+    #[cfg(target_arch = "x86_64")]
+    type Z = simd::Z512d;
+    #[cfg(target_arch = "x86_64")]
+    type Y = simd::Y256d;
+    #[cfg(target_arch = "x86_64")]
+    type X = simd::X128d;
+}
+
+/// [`product`] for a number type with tiles: the instruction set picks the register type.
+unsafe fn tiled<E: Registers>(a: Mat<E>, b: Mat<E>, c: MatMut<E>, accumulate: bool) {
     #[cfg(target_arch = "x86_64")]
     {
-        use simd::{X128d, Y256d, Z512d};
+        // Tiles that fit the register file: 32 zmm (24 accumulators), 16 ymm (12), 16 xmm (8).
         match isa() {
-            Isa::Avx512 => with_avx512::<Z512d, 12, 2>(a, b, c, accumulate),
-            Isa::Avx2 => with_avx2::<Y256d, 6, 2>(a, b, c, accumulate),
-            Isa::Baseline => dispatch::<X128d, 4, 2>(a, b, c, accumulate),
+            Isa::Avx512 => with_avx512::<E::Z, 12, 2>(a, b, c, accumulate),
+            Isa::Avx2 => with_avx2::<E::Y, 6, 2>(a, b, c, accumulate),
+            Isa::Baseline => dispatch::<E::X, 4, 2>(a, b, c, accumulate),
         }
     }
     #[cfg(not(target_arch = "x86_64"))]
-    dispatch::<One<f64>, 4, 4>(a, b, c, accumulate)
+    dispatch::<One<E>, 4, 4>(a, b, c, accumulate)
 }
 
 /// # Safety
