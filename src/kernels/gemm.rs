@@ -174,14 +174,28 @@ pub(crate) unsafe fn product<F: Scalar>(a: Mat<F>, b: Mat<F>, c: MatMut<F>, accu
     }
     if TypeId::of::<F>() == TypeId::of::<f32>() {
         // SAFETY: F is f32, so the casts change nothing.
-        tiled::<f32>(a.cast(), b.cast(), c.cast(), accumulate)
+        product_f32(a.cast(), b.cast(), c.cast(), accumulate)
     } else if TypeId::of::<F>() == TypeId::of::<f64>() {
         // SAFETY: F is f64, as above.
-        tiled::<f64>(a.cast(), b.cast(), c.cast(), accumulate)
+        product_f64(a.cast(), b.cast(), c.cast(), accumulate)
     } else {
         // Another `Scalar` type: no tile for it, the plain loops still give the right answer.
         direct::<F, false>(a, b, c, accumulate)
     }
+}
+
+/// The f32 product, compiled here once: being neither generic nor inline, it is optimized with
+/// this crate even when the code calling it is built without optimization (a debug build, a
+/// doctest), where a generic product would be instantiated unoptimized and run 100× slower.
+#[inline(never)]
+unsafe fn product_f32(a: Mat<f32>, b: Mat<f32>, c: MatMut<f32>, accumulate: bool) {
+    tiled(a, b, c, accumulate)
+}
+
+/// The f64 product, as [`product_f32`].
+#[inline(never)]
+unsafe fn product_f64(a: Mat<f64>, b: Mat<f64>, c: MatMut<f64>, accumulate: bool) {
+    tiled(a, b, c, accumulate)
 }
 
 /// The register types a number type has a tile for.
