@@ -92,6 +92,9 @@ fn small_model() -> Model {
 fn benches(c: &mut Criterion) {
     step(c, "tabular_b32", &[10, 64, 64, 1], 32);
     step(c, "wide_b256", &[256, 256, 256, 256, 1], 256);
+    relume::kernels::set_threads(2);
+    step(c, "wide_b1024_2t", &[256, 256, 256, 256, 1], 1024);
+    relume::kernels::set_threads(1);
     products(c);
     let model = small_model();
     let predictor = Predictor::new(&model);
