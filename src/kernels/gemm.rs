@@ -233,19 +233,24 @@ impl Registers for f64 {
 unsafe fn tiled<E: Registers>(a: Mat<E>, b: Mat<E>, c: MatMut<E>, accumulate: bool) {
     #[cfg(target_arch = "x86_64")]
     {
+        use super::Simd;
         // Tiles that fit the register file: 32 zmm (24 accumulators), 16 ymm (12), 16 xmm (8).
-        match isa() {
-            Isa::Avx512 => with_avx512::<E::Z, 12, 2>(a, b, c, accumulate),
-            Isa::Avx2 => with_avx2::<E::Y, 6, 2>(a, b, c, accumulate),
-            Isa::Baseline => dispatch::<E::X, 4, 2>(a, b, c, accumulate),
+        match super::simd_level() {
+            Simd::Avx512 => with_avx512::<E::Z, 12, 2>(a, b, c, accumulate),
+            Simd::Avx2 => with_avx2::<E::Y, 6, 2>(a, b, c, accumulate),
+            Simd::Baseline => dispatch::<E::X, 4, 2>(a, b, c, accumulate),
         }
     }
     #[cfg(not(target_arch = "x86_64"))]
     dispatch::<One<E>, 4, 4>(a, b, c, accumulate)
 }
 
+/// The product compiled with AVX-512. A function of its own rather than `with_simd`'s closure
+/// form: the tile handed over in a closure was not inlined into the AVX-512 context and ran 64×
+/// slower (measured with the perf report's `gemm` lines).
+///
 /// # Safety
-/// As [`product`]; the CPU supports AVX-512F and FMA (checked by [`isa`]).
+/// As [`product`]; the CPU supports AVX-512F and FMA (checked by `simd_level`).
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx512f,avx2,fma")]
 unsafe fn with_avx512<V: Lanes, const MR: usize, const NV: usize>(
@@ -258,7 +263,7 @@ unsafe fn with_avx512<V: Lanes, const MR: usize, const NV: usize>(
 }
 
 /// # Safety
-/// As [`product`]; the CPU supports AVX2 and FMA (checked by [`isa`]).
+/// As [`product`]; the CPU supports AVX2 and FMA (checked by `simd_level`).
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2,fma")]
 unsafe fn with_avx2<V: Lanes, const MR: usize, const NV: usize>(
@@ -268,15 +273,6 @@ unsafe fn with_avx2<V: Lanes, const MR: usize, const NV: usize>(
     accumulate: bool,
 ) {
     dispatch::<V, MR, NV>(a, b, c, accumulate)
-}
-
-#[cfg(target_arch = "x86_64")]
-use super::Simd as Isa;
-
-/// The best instruction set this CPU has, capped by [`super::set_simd_limit`].
-#[cfg(target_arch = "x86_64")]
-fn isa() -> Isa {
-    super::simd_level()
 }
 
 /// Chooses between the packed path and the direct one for this tile shape (MR rows, NV
