@@ -5,6 +5,7 @@
 use nalgebra::DMatrix;
 use ndarray::{Array2, ArrayView2};
 use relume::kernels::{matmul, matmul_bias, set_simd_limit, set_threads, simd_level, Simd};
+use std::sync::{Mutex, MutexGuard};
 
 fn filled(rows: usize, cols: usize, seed: usize) -> Array2<f64> {
     Array2::from_shape_fn((rows, cols), |(i, j)| {
@@ -95,10 +96,23 @@ fn check(m: usize, n: usize, k: usize) {
     }
 }
 
+/// The instruction-set cap and the thread count are process-wide settings, and the test harness
+/// runs this file's tests in parallel: each test holds this lock while it changes them. (Without
+/// it, the cap could change between the one- and two-thread training runs below, and products
+/// with and without fused multiply-add round differently.)
+static SETTINGS: Mutex<()> = Mutex::new(());
+
+/// Takes the settings lock, also after another test failed while holding it.
+fn settings() -> MutexGuard<'static, ()> {
+    SETTINGS
+        .lock()
+        .unwrap_or_else(|poisoned| poisoned.into_inner())
+}
+
 #[test]
 fn products_match_nalgebra_on_every_path() {
-    // Each instruction set this CPU has (the cap only changes which kernel runs; every kernel
-    // must give the reference result, so the other test in this file is unaffected).
+    let _settings = settings();
+    // Each instruction set this CPU has: every kernel must give the reference result.
     for limit in [Simd::Baseline, Simd::Avx2, Simd::Avx512] {
         set_simd_limit(limit);
         if simd_level() == limit {
@@ -126,6 +140,7 @@ fn check_all() {
 
 #[test]
 fn products_split_over_two_threads_match_one_thread() {
+    let _settings = settings();
     // Large enough to be split (m·n·k ≥ 2¹⁸), with ragged edges.
     let a = filled(517, 300, 4);
     let b = filled(300, 261, 5);
