@@ -450,8 +450,15 @@ unsafe fn pack_strips<F: Scalar>(m: Mat<F>, width: usize, out: &mut [F]) {
         let j0 = s * width;
         let n = width.min(cols - j0);
         for (p, dst) in strip.chunks_exact_mut(width).enumerate() {
-            if m.cs == 1 {
+            if m.cs == 1 && n == width {
+                // A whole strip row: `width` is a constant once inlined, so this copy compiles
+                // to a few vector moves instead of a call to memcpy per row (which cost ~9% of a
+                // two-thread training step).
                 // SAFETY: row p of the block has `cols` contiguous elements from column 0.
+                let src = std::slice::from_raw_parts(m.at(p, j0), width);
+                dst.copy_from_slice(src);
+            } else if m.cs == 1 {
+                // SAFETY: as above.
                 let src = std::slice::from_raw_parts(m.at(p, j0), n);
                 dst[..n].copy_from_slice(src);
             } else {
