@@ -106,6 +106,8 @@ fn demo_model(hidden: Vec<usize>, seed: u64) -> Model {
 }
 
 const CHILD_ENV: &str = "RELUME_SAVE_LOOP_TARGET";
+/// The line the child prints when its save loop starts.
+const READY: &str = "save loop starts";
 
 /// In the child process: save two alternating models to the target path until killed.
 #[test]
@@ -115,6 +117,9 @@ fn save_loop_child() {
     };
     let models = [demo_model(vec![256, 256], 1), demo_model(vec![256, 256], 2)];
     let path = PathBuf::from(target);
+    // Tells the parent that the saving starts now (building the models takes a while, longer
+    // on a busy machine).
+    println!("{READY}");
     for k in 0.. {
         models[k % 2].save(&path).unwrap();
     }
@@ -139,15 +144,20 @@ fn a_crash_in_the_middle_of_saving_never_damages_the_saved_file() {
                 "1",
             ])
             .env(CHILD_ENV, &path)
-            .stdout(std::process::Stdio::null())
+            .stdout(std::process::Stdio::piped())
             .stderr(std::process::Stdio::null())
             .spawn()
             .unwrap();
-        // A pseudo-random moment: 100 to 700 ms in (building the two models takes part of it).
+        // Wait until the child is saving, so that the kill lands in the save loop however
+        // long building the models took on a loaded machine.
+        let stdout = std::io::BufReader::new(child.stdout.take().unwrap());
+        let started = std::io::BufRead::lines(stdout).any(|l| l.is_ok_and(|l| l.ends_with(READY)));
+        assert!(started, "attempt {attempt}: the child ended before saving");
+        // Then a pseudo-random moment 0 to 60 ms into the loop (several saves).
         rng_state = rng_state
             .wrapping_mul(6364136223846793005)
             .wrapping_add(1442695040888963407);
-        std::thread::sleep(Duration::from_millis(100 + (rng_state >> 33) % 600));
+        std::thread::sleep(Duration::from_micros((rng_state >> 33) % 60_000));
         child.kill().unwrap(); // SIGKILL on Unix: no destructor or flush runs.
         child.wait().unwrap();
         let model = Model::load(&path).unwrap_or_else(|e| panic!("attempt {attempt}: {e}"));
