@@ -120,8 +120,13 @@ fn save_loop_child() {
     // Tells the parent that the saving starts now (building the models takes a while, longer
     // on a busy machine).
     println!("{READY}");
+    // Bounded, so that a child whose parent died does not save forever.
+    let until = Instant::now() + Duration::from_secs(60);
     for k in 0.. {
         models[k % 2].save(&path).unwrap();
+        if Instant::now() > until {
+            break;
+        }
     }
 }
 
