@@ -109,7 +109,7 @@ const CHILD_ENV: &str = "RELUME_SAVE_LOOP_TARGET";
 /// The line the child prints when its save loop starts.
 const READY: &str = "save loop starts";
 
-/// In the child process: save two alternating models to the target path until killed.
+/// In the child process: save two alternating models to the target path until killed (or 60 s).
 #[test]
 fn save_loop_child() {
     let Ok(target) = std::env::var(CHILD_ENV) else {
