@@ -53,7 +53,7 @@ pub mod stats;
 pub mod train;
 
 pub use activation::Activation;
-pub use data::{EncoderSpec, Table};
+pub use data::{Encoder, EncoderSpec, Table};
 pub use error::{ConfigError, ShapeError};
 pub use gradcheck::{check_gradients, CheckOptions, GradReport};
 pub use init::{Draw, Fan, Init};

@@ -20,8 +20,11 @@ use thiserror::Error;
 
 /// Name in the `format` field of every model file.
 pub const MODEL_FORMAT: &str = "relume-model";
-/// Version of the model file layout this library writes and reads.
-pub const MODEL_VERSION: u32 = 1;
+/// Version of the model file layout this library writes.
+pub const MODEL_VERSION: u32 = 2;
+/// Oldest model file version this library reads (version 1 files load with today's defaults
+/// for what they lack: no pooled or missing levels, no was-missing inputs).
+pub const OLDEST_MODEL_VERSION: u32 = 1;
 /// Largest model file read, in bytes.
 pub const MAX_MODEL_BYTES: u64 = 1 << 30;
 /// Largest width of any layer in a model file.
@@ -48,7 +51,16 @@ pub struct ModelSummary {
     pub validation: Option<Metrics>,
     /// Dead-unit fraction of each hidden layer at the end (from the monitor's probe).
     pub dead_fractions: Vec<f64>,
+    /// Rows left out because their target was empty.
+    #[serde(default)]
+    pub empty_targets: usize,
+    /// File lines of the first of those rows.
+    #[serde(default)]
+    pub empty_target_lines: Vec<u64>,
 }
+
+/// Lines of rows with an empty target listed at most.
+pub const EMPTY_TARGET_LINES_SHOWN: usize = 5;
 
 /// A trained model: encoder, scaling, network and summary.
 #[derive(Debug, Clone)]
@@ -86,13 +98,21 @@ pub enum FitError {
     Train(#[from] TrainError),
 }
 
-/// An encoded table: the encoder, inputs, target and the validation rows.
-type Encoded = (
-    Encoder,
-    ndarray::Array2<f32>,
-    ndarray::Array2<f32>,
-    Vec<usize>,
-);
+/// A table encoded for training ([`Model::prepare`]): the fitted encoder (with what became of
+/// every column, and the data warnings), the encoded rows and the validation rows.
+#[derive(Clone, Debug)]
+pub struct Prepared {
+    /// The encoder, fitted as [`Encoder::fit`] says.
+    pub encoder: Encoder,
+    /// Prepared inputs, one row per table row with a target.
+    pub x: ndarray::Array2<f32>,
+    /// The target as the network models it.
+    pub y: ndarray::Array2<f32>,
+    /// Rows (of `x`) held out for validation.
+    pub val_rows: Vec<usize>,
+    /// Rows left out because their target was empty: how many, and the first lines.
+    pub empty_targets: (usize, Vec<u64>),
+}
 
 /// The on-disk layout.
 #[derive(Serialize, Deserialize)]
@@ -130,8 +150,8 @@ impl Model {
         monitor: MonitorConfig,
         observers: &mut [&mut dyn Observer<f32>],
     ) -> Result<(Model, RunReport), FitError> {
-        let (encoder, x, y, val_rows) = Model::encode(table, spec, recipe)?;
-        Model::fit_encoded(encoder, x, y, val_rows, recipe, monitor, observers)
+        let encoded = Model::prepare(table, spec, recipe)?;
+        Model::fit_prepared(encoded, recipe, monitor, observers)
     }
 
     /// [`Model::fit_observed`] that takes the table and frees it as soon as it is encoded, so
@@ -143,30 +163,61 @@ impl Model {
         monitor: MonitorConfig,
         observers: &mut [&mut dyn Observer<f32>],
     ) -> Result<(Model, RunReport), FitError> {
-        let (encoder, x, y, val_rows) = Model::encode(&table, spec, recipe)?;
+        let encoded = Model::prepare(&table, spec, recipe)?;
         drop(table);
-        Model::fit_encoded(encoder, x, y, val_rows, recipe, monitor, observers)
+        Model::fit_prepared(encoded, recipe, monitor, observers)
     }
 
-    /// Encoder fitted on the recipe's training rows, the encoded table and the validation rows.
-    fn encode(table: &Table, spec: &EncoderSpec, recipe: &Recipe) -> Result<Encoded, FitError> {
+    /// Leaves out the rows with an empty target, then fits the encoder (levels from every
+    /// remaining row, statistics from the recipe's training rows) and encodes the table.
+    pub fn prepare(
+        table: &Table,
+        spec: &EncoderSpec,
+        recipe: &Recipe,
+    ) -> Result<Prepared, FitError> {
+        let (table, empty_targets) = with_targets(table, &spec.target)?;
+        let table = table.as_ref();
         let (train_rows, val_rows) = recipe.split(table.rows())?;
         let encoder = Encoder::fit(table, spec, &train_rows)?;
         let x = encoder.encode_inputs::<f32>(table, None)?;
         let y = encoder.encode_target(table, None)?.mapv(|v| v as f32);
-        Ok((encoder, x, y, val_rows))
+        Ok(Prepared {
+            encoder,
+            x,
+            y,
+            val_rows,
+            empty_targets,
+        })
     }
 
-    fn fit_encoded(
-        encoder: Encoder,
-        x: ndarray::Array2<f32>,
-        y: ndarray::Array2<f32>,
-        val_rows: Vec<usize>,
+    /// Trains on a prepared table (see [`Model::fit`]).
+    pub fn fit_prepared(
+        encoded: Prepared,
         recipe: &Recipe,
         monitor: MonitorConfig,
         observers: &mut [&mut dyn Observer<f32>],
     ) -> Result<(Model, RunReport), FitError> {
-        let (mut trained, report) = recipe.fit_reported(x.view(), y.view(), monitor, observers)?;
+        let Prepared {
+            encoder,
+            x,
+            y,
+            val_rows,
+            empty_targets,
+        } = encoded;
+        let (mut trained, mut report) =
+            recipe.fit_reported(x.view(), y.view(), monitor, observers)?;
+        report.columns = encoder
+            .columns
+            .iter()
+            .map(|c| format!("{}: {}", c.name, c.what))
+            .collect();
+        report.data_warnings = encoder.warnings.clone();
+        if empty_targets.0 > 0 {
+            report.data_warnings.push(format!(
+                "{} rows with an empty target were left out (first lines: {:?})",
+                empty_targets.0, empty_targets.1
+            ));
+        }
         let validation = (!val_rows.is_empty()).then(|| {
             let xv = x.select(ndarray::Axis(0), &val_rows);
             let pred = trained.predict(xv.view()).expect("encoded widths match");
@@ -194,6 +245,8 @@ impl Model {
             stop: s.stop,
             validation,
             dead_fractions,
+            empty_targets: empty_targets.0,
+            empty_target_lines: empty_targets.1,
         };
         Ok((
             Model {
@@ -273,10 +326,11 @@ impl Model {
             None => return Err(format!("no 'format' field: not a {MODEL_FORMAT} file")),
         }
         match header.version {
-            Some(v) if v == MODEL_VERSION => {}
+            Some(v) if (OLDEST_MODEL_VERSION..=MODEL_VERSION).contains(&v) => {}
             Some(v) => {
                 return Err(format!(
-                    "version {v} is not supported (this relume reads version {MODEL_VERSION})"
+                    "version {v} is not supported (this relume reads versions \
+                     {OLDEST_MODEL_VERSION} to {MODEL_VERSION}); a newer relume wrote it"
                 ))
             }
             None => return Err("no 'version' field".to_string()),
@@ -402,6 +456,14 @@ fn validate(file: &ModelFile) -> Result<(), String> {
                 min,
                 max,
                 fill,
+                ..
+            }
+            | FeatureEncoding::Date {
+                name,
+                min,
+                max,
+                fill,
+                ..
             } => {
                 if !(min.is_finite() && max.is_finite() && min <= max)
                     || fill.is_some_and(|v| !v.is_finite())
@@ -409,12 +471,53 @@ fn validate(file: &ModelFile) -> Result<(), String> {
                     return Err(format!("feature '{name}': invalid range or fill value"));
                 }
             }
-            FeatureEncoding::Category { name, levels, .. } => {
-                if levels.is_empty() {
+            FeatureEncoding::Category {
+                name,
+                levels,
+                pooled,
+                missing_level,
+                ..
+            } => {
+                if levels.is_empty() && pooled.is_none() && !missing_level {
                     return Err(format!("feature '{name}' has no categories"));
                 }
             }
         }
     }
     Ok(())
+}
+
+/// The table without its rows whose target is empty (borrowed when there are none), and how
+/// many were left out with the first of their lines.
+fn with_targets<'t>(
+    table: &'t Table,
+    target: &str,
+) -> Result<(std::borrow::Cow<'t, Table>, (usize, Vec<u64>)), DataError> {
+    let column = table.column(target)?;
+    let crate::data::ColumnData::Number(values) = &column.data else {
+        return Err(DataError::Table {
+            source_name: table.source.clone(),
+            message: format!("the target column '{target}' is not numeric"),
+        });
+    };
+    let empty: Vec<usize> = (0..values.len()).filter(|&r| values[r].is_nan()).collect();
+    if empty.is_empty() {
+        return Ok((std::borrow::Cow::Borrowed(table), (0, Vec::new())));
+    }
+    if empty.len() == values.len() {
+        return Err(DataError::Table {
+            source_name: table.source.clone(),
+            message: format!("the target column '{target}' is empty in every row"),
+        });
+    }
+    let lines = empty
+        .iter()
+        .take(EMPTY_TARGET_LINES_SHOWN)
+        .map(|&r| table.lines[r])
+        .collect();
+    let kept: Vec<usize> = (0..values.len()).filter(|&r| !values[r].is_nan()).collect();
+    Ok((
+        std::borrow::Cow::Owned(table.select(&kept)),
+        (empty.len(), lines),
+    ))
 }

@@ -3,51 +3,26 @@
 //! input-range guard that flags extrapolation.
 
 use crate::activation::{leaky, Activation};
-use crate::data::{ColumnData, DataError, Encoder, FeatureEncoding, Table};
+use crate::data::{Column, DataError, Encoder, LevelIndex, Table};
 use crate::layer::LayerSpec;
 use crate::model::{Model, ModelError};
 use crate::scale::Standardizer;
-use std::collections::HashMap;
 use std::path::Path;
 
 /// Fraction of a feature's training range beyond which a value counts as extrapolation.
 pub const DEFAULT_MARGIN: f64 = 0.05;
 
-/// One cell of a row to predict, in the model's feature order.
-#[derive(Clone, Copy, Debug, PartialEq)]
-pub enum Cell<'a> {
-    /// A number.
-    Number(f64),
-    /// A category.
-    Text(&'a str),
-    /// An empty cell (filled if the model was trained with imputation).
-    Missing,
-}
+pub use crate::data::Cell;
+/// What is wrong with a cell (the encoder's [`CellProblem`]).
+pub use crate::data::CellProblem as RowErrorKind;
 
 /// Why a row could not be predicted; `feature` indexes [`Predictor::feature_names`].
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub struct RowError {
-    /// Which feature.
+    /// Which feature (for [`RowErrorKind::WrongLength`]: the number of cells given).
     pub feature: usize,
     /// What is wrong with it.
     pub kind: RowErrorKind,
-}
-
-/// What is wrong with a cell.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum RowErrorKind {
-    /// The row has the wrong number of cells (`feature` holds the count given).
-    WrongLength,
-    /// Empty, and the model has no imputation.
-    Missing,
-    /// A category not seen in training.
-    UnseenCategory,
-    /// Text where a number is expected.
-    NotANumber,
-    /// A number where a category is expected.
-    NotACategory,
-    /// A number that is not finite.
-    NonFinite,
 }
 
 /// The result of one row.
@@ -58,6 +33,9 @@ pub struct RowPrediction {
     /// Some numeric feature is outside its training range by more than the margin; which ones
     /// are in the scratch ([`Scratch::out_of_range`]).
     pub extrapolated: bool,
+    /// Some category was never seen in training and went through the pooled (or average)
+    /// level; which ones are in the scratch ([`Scratch::unseen`]).
+    pub unseen: bool,
 }
 
 /// Caller-owned working memory for [`Predictor::predict_row`]; make one per thread with
@@ -66,13 +44,20 @@ pub struct RowPrediction {
 pub struct Scratch {
     a: Vec<f32>,
     b: Vec<f32>,
+    raw: Vec<f64>,
     out_of_range: Vec<bool>,
+    unseen: Vec<bool>,
 }
 
 impl Scratch {
     /// Per feature, whether the last row was outside the training range.
     pub fn out_of_range(&self) -> &[bool] {
         &self.out_of_range
+    }
+
+    /// Per feature, whether the last row had a category never seen in training.
+    pub fn unseen(&self) -> &[bool] {
+        &self.unseen
     }
 }
 
@@ -97,7 +82,7 @@ pub struct Predictor {
     target: Standardizer,
     steps: Vec<Step>,
     max_width: usize,
-    levels: Vec<HashMap<String, usize>>,
+    index: LevelIndex,
     margin: f64,
 }
 
@@ -151,26 +136,13 @@ impl Predictor {
             .max()
             .unwrap_or(1)
             .max(net.input_width());
-        let levels = model
-            .encoder
-            .features
-            .iter()
-            .map(|f| match f {
-                FeatureEncoding::Category { levels, .. } => levels
-                    .iter()
-                    .enumerate()
-                    .map(|(i, l)| (l.clone(), i))
-                    .collect(),
-                FeatureEncoding::Number { .. } => HashMap::new(),
-            })
-            .collect();
         Predictor {
             encoder: model.encoder.clone(),
             inputs: model.inputs.clone(),
             target: model.target.clone(),
             steps,
             max_width,
-            levels,
+            index: LevelIndex::new(&model.encoder),
             margin: DEFAULT_MARGIN,
         }
     }
@@ -198,10 +170,13 @@ impl Predictor {
 
     /// Working memory for [`Predictor::predict_row`].
     pub fn scratch(&self) -> Scratch {
+        let features = &self.encoder.features;
         Scratch {
             a: vec![0.0; self.max_width],
             b: vec![0.0; self.max_width],
-            out_of_range: vec![false; self.encoder.features.len()],
+            raw: vec![0.0; features.iter().map(|f| f.width()).max().unwrap_or(0)],
+            out_of_range: vec![false; features.len()],
+            unseen: vec![false; features.len()],
         }
     }
 
@@ -223,6 +198,9 @@ impl Predictor {
             RowErrorKind::UnseenCategory => {
                 format!("'{name}' has a category that was not seen in training")
             }
+            RowErrorKind::NotADate => {
+                format!("'{name}' must be an ISO 8601 date (YYYY-MM-DD[THH:MM[:SS]])")
+            }
             RowErrorKind::NotANumber => format!("'{name}' must be a number"),
             RowErrorKind::NotACategory => format!("'{name}' must be a category (text)"),
             RowErrorKind::NonFinite => format!("'{name}' is not a finite number"),
@@ -242,49 +220,47 @@ impl Predictor {
                 kind: RowErrorKind::WrongLength,
             });
         }
-        let Scratch { a, b, out_of_range } = scratch;
-        let mut extrapolated = false;
+        let Scratch {
+            a,
+            b,
+            raw,
+            out_of_range,
+            unseen,
+        } = scratch;
+        let (mut extrapolated, mut any_unseen) = (false, false);
         let mut k = 0;
         for (i, (feature, cell)) in features.iter().zip(row).enumerate() {
-            let error = |kind| RowError { feature: i, kind };
-            match feature {
-                FeatureEncoding::Number { fill, min, max, .. } => {
-                    let v = match *cell {
-                        Cell::Number(v) if v.is_finite() => v,
-                        Cell::Number(_) => return Err(error(RowErrorKind::NonFinite)),
-                        Cell::Missing => fill.ok_or(error(RowErrorKind::Missing))?,
-                        Cell::Text(_) => return Err(error(RowErrorKind::NotANumber)),
-                    };
+            let w = feature.width();
+            let slots = &mut raw[..w];
+            let outcome = feature
+                .encode_cell(&self.index.maps[i], self.encoder.unseen, *cell, slots)
+                .map_err(|kind| RowError { feature: i, kind })?;
+            unseen[i] = outcome.unseen;
+            any_unseen |= outcome.unseen;
+            out_of_range[i] = match (outcome.value, feature.range()) {
+                (Some(v), Some((min, max))) => {
                     let slack = self.margin * (max - min).max(f64::EPSILON * min.abs());
-                    let outside = v < min - slack || v > max + slack;
-                    out_of_range[i] = outside;
-                    extrapolated |= outside;
-                    a[k] = ((v - self.inputs.mean[k]) / self.inputs.sd[k]) as f32;
-                    k += 1;
+                    v < min - slack || v > max + slack
                 }
-                FeatureEncoding::Category { levels, fill, .. } => {
-                    out_of_range[i] = false;
-                    let name = match *cell {
-                        Cell::Text(t) => t,
-                        Cell::Missing => fill.as_deref().ok_or(error(RowErrorKind::Missing))?,
-                        Cell::Number(_) => return Err(error(RowErrorKind::NotACategory)),
-                    };
-                    let hit = *self.levels[i]
-                        .get(name)
-                        .ok_or(error(RowErrorKind::UnseenCategory))?;
-                    for j in 0..levels.len() {
-                        let one = if j == hit { 1.0 } else { 0.0 };
-                        a[k + j] = ((one - self.inputs.mean[k + j]) / self.inputs.sd[k + j]) as f32;
-                    }
-                    k += levels.len();
-                }
+                _ => false,
+            };
+            extrapolated |= out_of_range[i];
+            for (j, &v) in slots.iter().enumerate() {
+                // NaN marks "at the training mean" (an unseen category without a pooled level).
+                a[k + j] = if v.is_nan() {
+                    0.0
+                } else {
+                    ((v - self.inputs.mean[k + j]) / self.inputs.sd[k + j]) as f32
+                };
             }
+            k += w;
         }
         let out = crate::kernels::with_simd(|| self.run_steps(a, b, k));
         let scaled = out as f64 * self.target.sd[0] + self.target.mean[0];
         Ok(RowPrediction {
             value: self.encoder.decode_target(scaled),
             extrapolated,
+            unseen: any_unseen,
         })
     }
 
@@ -319,22 +295,18 @@ impl Predictor {
     /// Predicts every row of a table (columns found by name; extra columns ignored). Each row
     /// gets its prediction or its error message, and the names of extrapolated features.
     pub fn predict_table(&self, table: &Table) -> Result<Vec<TableRow>, DataError> {
-        let columns: Vec<&ColumnData> = self
+        let columns: Vec<&Column> = self
             .encoder
             .features
             .iter()
-            .map(|f| table.column(f.name()).map(|c| &c.data))
+            .map(|f| table.column(f.name()))
             .collect::<Result<_, _>>()?;
         let mut scratch = self.scratch();
         let mut row: Vec<Cell<'_>> = Vec::with_capacity(columns.len());
         let mut out = Vec::with_capacity(table.rows());
         for r in 0..table.rows() {
             row.clear();
-            row.extend(columns.iter().map(|c| match c {
-                ColumnData::Number(v) if v[r].is_nan() => Cell::Missing,
-                ColumnData::Number(v) => Cell::Number(v[r]),
-                ColumnData::Text(v) => v[r].as_deref().map_or(Cell::Missing, Cell::Text),
-            }));
+            row.extend(columns.iter().map(|c| c.cell(r)));
             out.push(match self.predict_row(&row, &mut scratch) {
                 Ok(p) => TableRow {
                     line: table.lines[r],
@@ -347,12 +319,21 @@ impl Predictor {
                         .filter(|(_, &o)| o)
                         .map(|(f, _)| f.name().to_string())
                         .collect(),
+                    unseen: self
+                        .encoder
+                        .features
+                        .iter()
+                        .zip(scratch.unseen())
+                        .filter(|(_, &u)| u)
+                        .map(|(f, _)| f.name().to_string())
+                        .collect(),
                     error: None,
                 },
                 Err(e) => TableRow {
                     line: table.lines[r],
                     value: None,
                     out_of_range: Vec::new(),
+                    unseen: Vec::new(),
                     error: Some(self.explain(&e)),
                 },
             });
@@ -370,6 +351,8 @@ pub struct TableRow {
     pub value: Option<f64>,
     /// Features outside their training range by more than the margin.
     pub out_of_range: Vec<String>,
+    /// Features with a category never seen in training (predicted through the pooled level).
+    pub unseen: Vec<String>,
     /// Why the row could not be predicted.
     pub error: Option<String>,
 }

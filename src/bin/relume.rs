@@ -4,7 +4,7 @@
 
 use clap::{Args, Parser, Subcommand};
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
-use relume::data::{DataError, EncoderSpec, Impute, ReadOptions, Table};
+use relume::data::{list_some, DataError, EncoderSpec, Impute, ReadOptions, Table, UnseenPolicy};
 use relume::metrics::Metrics;
 use relume::model::{FitError, ModelError};
 use relume::monitor::MonitorConfig;
@@ -135,15 +135,69 @@ struct TableArgs {
     allow_non_finite: bool,
 }
 
-/// Which columns to model.
+/// Which columns to model, and how.
 #[derive(Args, Debug)]
 struct ColumnArgs {
-    /// The column to predict.
+    /// The column to predict. Rows where it is empty are left out and counted.
     #[arg(long, value_name = "COL")]
     target: String,
-    /// Feature columns (default: every column but the target).
+    /// Feature columns, used whatever their role would be (default: every column but the
+    /// target, leaving out identifier-like and constant columns).
     #[arg(long, value_delimiter = ',', value_name = "a,b,..")]
     features: Option<Vec<String>>,
+    /// Columns to use even if they look identifier-like or constant.
+    #[arg(long, value_delimiter = ',', value_name = "COL,..")]
+    keep_columns: Vec<String>,
+    /// Columns to leave out.
+    #[arg(long, value_delimiter = ',', value_name = "COL,..")]
+    drop_columns: Vec<String>,
+    /// Category levels seen in fewer rows are pooled into one learned "(other)" level.
+    #[arg(long, value_name = "N", default_value_t = relume::data::DEFAULT_MIN_LEVEL_ROWS)]
+    min_level_rows: usize,
+    /// Most levels a text column keeps (the most frequent; the rest are pooled).
+    #[arg(long, value_name = "N", default_value_t = relume::data::DEFAULT_MAX_LEVELS)]
+    max_levels: usize,
+    /// A category never seen in training, at prediction time: flag (predict through the
+    /// pooled level and say so in the issue column) or error (no prediction for the row).
+    #[arg(long, value_name = "POLICY", default_value = "flag")]
+    unseen: UnseenArg,
+    /// Fill empty numeric cells: mean, median or most-frequent, with a was-missing input
+    /// (recorded in the model). Without it an empty numeric cell is an error.
+    #[arg(long, value_name = "HOW")]
+    impute: Option<ImputeArg>,
+    /// Model ln(target); predictions come back in the target's units.
+    #[arg(long)]
+    log_target: bool,
+}
+
+impl ColumnArgs {
+    /// The encoder spec these options describe.
+    fn spec(&self) -> EncoderSpec {
+        EncoderSpec {
+            target: self.target.clone(),
+            features: self.features.clone(),
+            impute: self.impute.map(|i| match i {
+                ImputeArg::Mean => Impute::Mean,
+                ImputeArg::Median => Impute::Median,
+                ImputeArg::MostFrequent => Impute::MostFrequent,
+            }),
+            log_target: self.log_target,
+            min_level_rows: self.min_level_rows,
+            max_levels: self.max_levels,
+            unseen: match self.unseen {
+                UnseenArg::Flag => UnseenPolicy::Flag,
+                UnseenArg::Error => UnseenPolicy::Error,
+            },
+            keep: self.keep_columns.clone(),
+            drop: self.drop_columns.clone(),
+        }
+    }
+}
+
+#[derive(clap::ValueEnum, Clone, Copy, Debug)]
+enum UnseenArg {
+    Flag,
+    Error,
 }
 
 #[derive(Args, Debug)]
@@ -189,12 +243,6 @@ struct TrainArgs {
     /// Seed of initialization, split and shuffling (default 0).
     #[arg(long, value_name = "N")]
     seed: Option<u64>,
-    /// Fill empty cells: mean, median or most-frequent (recorded in the model).
-    #[arg(long, value_name = "HOW")]
-    impute: Option<ImputeArg>,
-    /// Model ln(target); predictions come back in the target's units.
-    #[arg(long)]
-    log_target: bool,
     /// Where to write the model file.
     #[arg(long, value_name = "MODEL")]
     out: PathBuf,
@@ -329,10 +377,13 @@ fn check_thread_variable() -> Result<(), String> {
     }
 }
 
-fn read_table(args: &TableArgs) -> Result<Table, Failure> {
+/// Reads the table; `model_text` adds the columns a model reads as text (categories, dates),
+/// so a column is typed as the model was trained on it.
+fn read_table(args: &TableArgs, model_text: &[String]) -> Result<Table, Failure> {
     let options = ReadOptions {
         text_columns: args.text_columns.clone(),
         allow_non_finite: args.allow_non_finite,
+        model_text_columns: model_text.to_vec(),
     };
     Ok(if args.data == "-" {
         Table::read(std::io::stdin().lock(), "stdin", &options)?
@@ -376,17 +427,8 @@ fn train(a: TrainArgs) -> Result<(), Failure> {
     if let Some(n) = a.threads {
         relume::kernels::set_threads(usize::from(n));
     }
-    let table = read_table(&a.table)?;
-    let spec = EncoderSpec {
-        target: a.columns.target.clone(),
-        features: a.columns.features.clone(),
-        impute: a.impute.map(|i| match i {
-            ImputeArg::Mean => Impute::Mean,
-            ImputeArg::Median => Impute::Median,
-            ImputeArg::MostFrequent => Impute::MostFrequent,
-        }),
-        log_target: a.log_target,
-    };
+    let table = read_table(&a.table, &[])?;
+    let spec = a.columns.spec();
     let recipe = Overrides {
         hidden: a.layers.clone(),
         activation: a.activation,
@@ -437,20 +479,37 @@ fn train(a: TrainArgs) -> Result<(), Failure> {
         config.epochs,
         100.0 * config.val_frac
     );
+    let prepared = Model::prepare(&table, &spec, &recipe)?;
+    drop(table);
+    print_columns(&prepared.encoder);
+    let (empty, lines) = &prepared.empty_targets;
+    if *empty > 0 {
+        eprintln!(
+            "rows left out: {empty} with an empty target (lines {}{})",
+            lines
+                .iter()
+                .map(u64::to_string)
+                .collect::<Vec<_>>()
+                .join(", "),
+            if *empty > lines.len() { ", ..." } else { "" }
+        );
+    }
+    for w in &prepared.encoder.warnings {
+        eprintln!("warning: {w}");
+    }
+    eprintln!(
+        "encoded inputs: {} ({})",
+        prepared.encoder.width(),
+        list_some(prepared.encoder.input_names(), 12)
+    );
     let mut progress = Progress::new(config.epochs);
-    let (model, mut report) = Model::fit_consuming(
-        table,
-        &spec,
+    let (model, mut report) = Model::fit_prepared(
+        prepared,
         &recipe,
         MonitorConfig::default(),
         &mut [&mut progress],
     )?;
     progress.bar.finish_and_clear();
-    eprintln!(
-        "encoded inputs: {} ({})",
-        model.encoder.width(),
-        model.encoder.input_names().join(", ")
-    );
     let s = &model.summary;
     eprintln!(
         "trained {} epochs on {} rows (best epoch {}, stopped: {:?})",
@@ -514,6 +573,82 @@ fn train(a: TrainArgs) -> Result<(), Failure> {
     Ok(())
 }
 
+/// One line per column: what it became and why.
+fn print_columns(encoder: &relume::data::Encoder) {
+    eprintln!("columns:");
+    for c in &encoder.columns {
+        eprintln!("  {}: {}", c.name, c.what);
+    }
+}
+
+/// What a feature's inputs are, in words.
+fn describe_feature(f: &relume::data::FeatureEncoding) -> String {
+    use relume::data::FeatureEncoding as E;
+    let filled = |fill: Option<String>, flag: bool| match fill {
+        Some(v) => format!(
+            ", empty cells filled with {v}{}",
+            if flag { " (+ a was-missing input)" } else { "" }
+        ),
+        None => String::new(),
+    };
+    match f {
+        E::Number {
+            min,
+            max,
+            fill,
+            missing_flag,
+            ..
+        } => format!(
+            "number, training range [{min}, {max}]{}",
+            filled(fill.map(|v| v.to_string()), *missing_flag)
+        ),
+        E::Category {
+            levels,
+            fill,
+            pooled,
+            missing_level,
+            ..
+        } => format!(
+            "one-hot over {} levels ({}){}{}{}",
+            levels.len(),
+            list_some(levels, 10),
+            pooled.as_ref().map_or(String::new(), |p| format!(
+                ", {} rare levels pooled into {}",
+                p.len(),
+                relume::data::OTHER_LEVEL
+            )),
+            if *missing_level {
+                format!(", empty cells as {}", relume::data::MISSING_LEVEL)
+            } else {
+                String::new()
+            },
+            filled(fill.clone(), false)
+        ),
+        E::Date {
+            min,
+            max,
+            fill,
+            missing_flag,
+            with_time,
+            ..
+        } => format!(
+            "ISO date, training range {} to {} ({} inputs: days since 1970-01-01, year and week \
+             cycles{}){}",
+            iso_day(*min),
+            iso_day(*max),
+            f.width(),
+            if *with_time { ", time of day" } else { "" },
+            filled(fill.map(iso_day), *missing_flag)
+        ),
+    }
+}
+
+/// A day number (days since 1970-01-01) as YYYY-MM-DD.
+fn iso_day(days: f64) -> String {
+    let (y, m, d) = relume::data::civil_from_days(days.floor() as i64);
+    format!("{y:04}-{m:02}-{d:02}")
+}
+
 fn csv_field(text: &str) -> String {
     if text.contains([',', '"', '\n', '\r']) {
         format!("\"{}\"", text.replace('"', "\"\""))
@@ -532,7 +667,7 @@ fn cell_text(table: &Table, column: &str, row: usize) -> Result<String, Failure>
 
 fn predict(a: PredictArgs) -> Result<(), Failure> {
     let predictor = Predictor::load(&a.model)?;
-    let table = read_table(&a.table)?;
+    let table = read_table(&a.table, &predictor.encoder().text_columns())?;
     for k in &a.key {
         table.column(k)?;
     }
@@ -545,7 +680,7 @@ fn predict(a: PredictArgs) -> Result<(), Failure> {
     };
     let header: Vec<String> = keys.iter().map(|k| csv_field(k)).collect();
     text += &format!("{},prediction,extrapolated,issue\n", header.join(","));
-    let (mut failed, mut flagged) = (0, 0);
+    let (mut failed, mut flagged, mut unseen) = (0, 0, 0);
     for (r, row) in rows.iter().enumerate() {
         let key_values: Vec<String> = if a.key.is_empty() {
             vec![row.line.to_string()]
@@ -555,16 +690,30 @@ fn predict(a: PredictArgs) -> Result<(), Failure> {
                 .map(|k| cell_text(&table, k, r).map(|t| csv_field(&t)))
                 .collect::<Result<_, _>>()?
         };
-        let issue = match (&row.error, row.out_of_range.is_empty()) {
-            (Some(e), _) => {
+        let issue = match &row.error {
+            Some(e) => {
                 failed += 1;
                 e.clone()
             }
-            (None, false) => {
-                flagged += 1;
-                format!("outside the training range: {}", row.out_of_range.join(" "))
+            None => {
+                let mut parts = Vec::new();
+                if !row.out_of_range.is_empty() {
+                    flagged += 1;
+                    parts.push(format!(
+                        "outside the training range: {}",
+                        row.out_of_range.join(" ")
+                    ));
+                }
+                if !row.unseen.is_empty() {
+                    unseen += 1;
+                    parts.push(format!(
+                        "category not seen in training (predicted as {}): {}",
+                        relume::data::OTHER_LEVEL,
+                        row.unseen.join(" ")
+                    ));
+                }
+                parts.join("; ")
             }
-            (None, true) => String::new(),
         };
         text += &format!(
             "{},{},{},{}\n",
@@ -593,6 +742,12 @@ fn predict(a: PredictArgs) -> Result<(), Failure> {
     if flagged > 0 {
         eprintln!("{flagged} rows are outside the training range (extrapolation): check them");
     }
+    if unseen > 0 {
+        eprintln!(
+            "{unseen} rows have a category not seen in training: predicted through the pooled \
+             level and flagged in the issue column"
+        );
+    }
     if failed > 0 {
         eprintln!("{failed} rows could not be predicted (see the issue column)");
     }
@@ -601,7 +756,7 @@ fn predict(a: PredictArgs) -> Result<(), Failure> {
 
 fn evaluate(a: EvaluateArgs) -> Result<(), Failure> {
     let predictor = Predictor::load(&a.model)?;
-    let table = read_table(&a.table)?;
+    let table = read_table(&a.table, &predictor.encoder().text_columns())?;
     let encoder = predictor.encoder();
     let target = encoder.target.name.clone();
     let column = table.column(&target)?;
@@ -689,28 +844,23 @@ fn inspect(a: InspectArgs) -> Result<(), Failure> {
             LayerSpec::Dropout { width, rate } => println!("  {i}: dropout {rate} on {width}"),
         }
     }
-    println!("inputs:");
-    for f in &model.encoder.features {
-        match f {
-            relume::data::FeatureEncoding::Number {
-                name,
-                min,
-                max,
-                fill,
-            } => println!(
-                "  {name}: number, training range [{min}, {max}]{}",
-                fill.map_or(String::new(), |v| format!(", empty cells filled with {v}"))
-            ),
-            relume::data::FeatureEncoding::Category { name, levels, fill } => println!(
-                "  {name}: one-hot over {} categories ({}){}",
-                levels.len(),
-                levels.join(", "),
-                fill.as_ref().map_or(String::new(), |v| format!(
-                    ", empty cells filled with '{v}'"
-                ))
-            ),
+    if !model.encoder.columns.is_empty() {
+        println!("columns:");
+        for c in &model.encoder.columns {
+            println!("  {}: {}", c.name, c.what);
         }
     }
+    println!("inputs ({} after encoding):", model.encoder.width());
+    for f in &model.encoder.features {
+        println!("  {}: {}", f.name(), describe_feature(f));
+    }
+    println!(
+        "unseen categories at prediction time: {}",
+        match model.encoder.unseen {
+            UnseenPolicy::Flag => "predicted through the pooled (or average) level, and flagged",
+            UnseenPolicy::Error => "an error for that row",
+        }
+    );
     let t = &model.encoder.target;
     println!(
         "target: {}{}",
@@ -793,12 +943,8 @@ fn compare(a: CompareArgs) -> Result<(), Failure> {
         ));
     }
     let shard = a.shard.as_deref().map(parse_shard).transpose()?;
-    let table = read_table(&a.table)?;
-    let spec = EncoderSpec {
-        target: a.columns.target.clone(),
-        features: a.columns.features.clone(),
-        ..EncoderSpec::default()
-    };
+    let table = read_table(&a.table, &[])?;
+    let spec = a.columns.spec();
     let base = Overrides {
         hidden: a.layers.clone(),
         epochs: a.epochs,

@@ -1,43 +1,107 @@
-//! From table columns to network inputs: column choice, imputation, one-hot encoding of text
-//! columns and an optional log target, all fitted on the training rows only. (Z-scores are
-//! applied after encoding by the recipe's [`crate::Standardizer`], also fitted on training rows.)
+//! From table columns to network inputs: column roles (identifiers and constants left out,
+//! dates expanded), one-hot categories with rare levels pooled, missing cells, and an optional
+//! log target. Category levels come from every row handed to training (the target is not
+//! involved, so nothing leaks); ranges, fill values and warnings come from the training rows.
+//! (Z-scores are applied after encoding by the recipe's [`crate::Standardizer`].)
 
-use super::{ColumnData, DataError, Table};
+use super::dates::{date_parts, parse_iso_date};
+use super::profile::{self, TextProfile};
+use super::{list_some, ColumnData, DataError, Table};
 use crate::scalar::Scalar;
 use ndarray::Array2;
 use serde::{Deserialize, Serialize};
 use std::collections::HashMap;
 
-/// How to fill empty cells. Without it an empty cell is an error naming its line and column.
+/// Levels seen in fewer rows than this are pooled into [`OTHER_LEVEL`]. Measured on the shared
+/// real tables (DEVELOPERS.md): 5 gave the best or near-best holdout RMSE of 2, 5 and 10.
+pub const DEFAULT_MIN_LEVEL_ROWS: usize = 5;
+/// A text column keeps at most this many levels (the most frequent); the rest are pooled.
+pub const DEFAULT_MAX_LEVELS: usize = 50;
+/// A text column with at least this share of distinct values among its filled cells (and at
+/// least [`IDENTIFIER_MIN_ROWS`] of them) is identifier-like. Common practice, no source.
+pub const IDENTIFIER_SHARE: f64 = 0.9;
+/// Filled cells a column needs before it can be called identifier-like.
+pub const IDENTIFIER_MIN_ROWS: usize = 20;
+/// A single input that explains this share of the target's variance on the training rows
+/// (r² for numbers and dates, η² for categories) is reported as a likely leak.
+pub const LEAK_SHARE: f64 = 0.9;
+/// A positive target with at least this sample skewness gets the log-target advice.
+pub const SKEW_ADVICE: f64 = 1.0;
+/// Name of the pooled level of rare and unseen categories.
+pub const OTHER_LEVEL: &str = "(other)";
+/// Name of the level of empty text cells.
+pub const MISSING_LEVEL: &str = "(missing)";
+
+/// How to fill empty numeric cells. Without it an empty numeric cell is an error naming its
+/// line and column. (Empty text cells are always their own level.)
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub enum Impute {
-    /// Numbers: the training mean; text: the most frequent level.
+    /// The training mean.
     Mean,
-    /// Numbers: the training median; text: the most frequent level.
+    /// The training median.
     Median,
-    /// The most frequent value (numbers and text).
+    /// The most frequent training value.
     MostFrequent,
 }
 
+/// What a category never seen in training gets at prediction time.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum UnseenPolicy {
+    /// A prediction with a flag: the pooled level if the column has one, else the average of
+    /// the levels (every one-hot input at its training mean).
+    #[default]
+    Flag,
+    /// No prediction for that row: an error naming the column.
+    Error,
+}
+
 /// What to encode.
-#[derive(Clone, Debug, PartialEq, Default)]
+#[derive(Clone, Debug, PartialEq)]
 pub struct EncoderSpec {
     /// Target column.
     pub target: String,
-    /// Feature columns; None: every column but the target.
+    /// Feature columns; None: every column but the target, with roles decided from the data.
+    /// Columns named here are used whatever their role would be.
     pub features: Option<Vec<String>>,
-    /// Fill empty cells instead of refusing them.
+    /// Fill empty numeric cells (with a was-missing input) instead of refusing them.
     pub impute: Option<Impute>,
     /// Model ln(target) instead of the target (every target must then be > 0).
     pub log_target: bool,
+    /// Levels seen in fewer rows are pooled into [`OTHER_LEVEL`].
+    pub min_level_rows: usize,
+    /// Most levels a text column keeps.
+    pub max_levels: usize,
+    /// What an unseen category gets at prediction time.
+    pub unseen: UnseenPolicy,
+    /// Columns used whatever their role would be (identifier-like or constant).
+    pub keep: Vec<String>,
+    /// Columns left out.
+    pub drop: Vec<String>,
+}
+
+impl Default for EncoderSpec {
+    fn default() -> Self {
+        EncoderSpec {
+            target: String::new(),
+            features: None,
+            impute: None,
+            log_target: false,
+            min_level_rows: DEFAULT_MIN_LEVEL_ROWS,
+            max_levels: DEFAULT_MAX_LEVELS,
+            unseen: UnseenPolicy::Flag,
+            keep: Vec::new(),
+            drop: Vec::new(),
+        }
+    }
 }
 
 /// How one feature column becomes network inputs.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(tag = "kind", rename_all = "kebab-case")]
 pub enum FeatureEncoding {
-    /// A numeric column, one input.
+    /// A numeric column: one input, plus a 0/1 was-missing input when imputed.
     Number {
         /// Column name.
         name: String,
@@ -47,15 +111,41 @@ pub enum FeatureEncoding {
         min: f64,
         /// Largest training value.
         max: f64,
+        /// A second input says whether the cell was empty.
+        #[serde(default)]
+        missing_flag: bool,
     },
-    /// A text column, one input per level seen in training (one-hot).
+    /// A text column, one-hot: one input per level, then the pooled level, then the missing
+    /// level (each if present).
     Category {
         /// Column name.
         name: String,
-        /// Levels in input order.
+        /// Levels with an input of their own, in input order.
         levels: Vec<String>,
-        /// Level used for empty cells, if imputation is on.
+        /// Level used for empty cells (model files written before the missing level).
         fill: Option<String>,
+        /// Rare levels pooled into [`OTHER_LEVEL`]; Some means the column has that input.
+        #[serde(default)]
+        pooled: Option<Vec<String>>,
+        /// Empty cells have their own input ([`MISSING_LEVEL`]).
+        #[serde(default)]
+        missing_level: bool,
+    },
+    /// An ISO 8601 date column: days since 1970-01-01, the sine and cosine of the position in
+    /// the year and in the week, and in the day when the column has times.
+    Date {
+        /// Column name.
+        name: String,
+        /// Days used for empty cells, if imputation is on.
+        fill: Option<f64>,
+        /// Earliest training date (days since 1970-01-01).
+        min: f64,
+        /// Latest training date.
+        max: f64,
+        /// A last input says whether the cell was empty.
+        missing_flag: bool,
+        /// The values have a time of day (two more inputs).
+        with_time: bool,
     },
 }
 
@@ -63,17 +153,283 @@ impl FeatureEncoding {
     /// Column name.
     pub fn name(&self) -> &str {
         match self {
-            FeatureEncoding::Number { name, .. } | FeatureEncoding::Category { name, .. } => name,
+            FeatureEncoding::Number { name, .. }
+            | FeatureEncoding::Category { name, .. }
+            | FeatureEncoding::Date { name, .. } => name,
         }
     }
 
     /// Number of network inputs it produces.
     pub fn width(&self) -> usize {
         match self {
-            FeatureEncoding::Number { .. } => 1,
-            FeatureEncoding::Category { levels, .. } => levels.len(),
+            FeatureEncoding::Number { missing_flag, .. } => 1 + usize::from(*missing_flag),
+            FeatureEncoding::Category {
+                levels,
+                pooled,
+                missing_level,
+                ..
+            } => levels.len() + usize::from(pooled.is_some()) + usize::from(*missing_level),
+            FeatureEncoding::Date {
+                missing_flag,
+                with_time,
+                ..
+            } => 5 + 2 * usize::from(*with_time) + usize::from(*missing_flag),
         }
     }
+
+    /// The training range of a numeric or date feature.
+    pub fn range(&self) -> Option<(f64, f64)> {
+        match self {
+            FeatureEncoding::Number { min, max, .. } | FeatureEncoding::Date { min, max, .. } => {
+                Some((*min, *max))
+            }
+            FeatureEncoding::Category { .. } => None,
+        }
+    }
+
+    /// Names of its inputs ("column", "column=level", "column:days", ...).
+    pub fn input_names(&self) -> Vec<String> {
+        match self {
+            FeatureEncoding::Number {
+                name, missing_flag, ..
+            } => {
+                let mut v = vec![name.clone()];
+                if *missing_flag {
+                    v.push(format!("{name}:missing"));
+                }
+                v
+            }
+            FeatureEncoding::Category {
+                name,
+                levels,
+                pooled,
+                missing_level,
+                ..
+            } => {
+                let mut v: Vec<String> = levels.iter().map(|l| format!("{name}={l}")).collect();
+                if pooled.is_some() {
+                    v.push(format!("{name}={OTHER_LEVEL}"));
+                }
+                if *missing_level {
+                    v.push(format!("{name}={MISSING_LEVEL}"));
+                }
+                v
+            }
+            FeatureEncoding::Date {
+                name,
+                missing_flag,
+                with_time,
+                ..
+            } => {
+                let mut parts = vec!["days", "year-sin", "year-cos", "week-sin", "week-cos"];
+                if *with_time {
+                    parts.extend(["day-sin", "day-cos"]);
+                }
+                if *missing_flag {
+                    parts.push("missing");
+                }
+                parts.iter().map(|p| format!("{name}:{p}")).collect()
+            }
+        }
+    }
+
+    /// The feature's type as `predict` must read it: true for text (categories and dates).
+    pub fn reads_as_text(&self) -> bool {
+        !matches!(self, FeatureEncoding::Number { .. })
+    }
+
+    /// Encodes one cell into `out` (this feature's inputs, before scaling). An unseen
+    /// category under [`UnseenPolicy::Flag`] without a pooled level writes NaN into every
+    /// input: "at the training mean", which the caller's scaling turns into 0.
+    pub fn encode_cell(
+        &self,
+        levels: &HashMap<String, Slot>,
+        unseen: UnseenPolicy,
+        cell: Cell<'_>,
+        out: &mut [f64],
+    ) -> Result<CellOutcome, CellProblem> {
+        let mut outcome = CellOutcome::default();
+        match self {
+            FeatureEncoding::Number {
+                fill, missing_flag, ..
+            } => {
+                let v = match cell {
+                    Cell::Number(v) if v.is_finite() => {
+                        outcome.value = Some(v);
+                        v
+                    }
+                    Cell::Number(_) => return Err(CellProblem::NonFinite),
+                    Cell::Missing => fill.ok_or(CellProblem::Missing)?,
+                    Cell::Text(_) => return Err(CellProblem::NotANumber),
+                };
+                out[0] = v;
+                if *missing_flag {
+                    out[1] = if cell == Cell::Missing { 1.0 } else { 0.0 };
+                }
+            }
+            FeatureEncoding::Category {
+                levels: names,
+                fill,
+                pooled,
+                missing_level,
+                ..
+            } => {
+                out.fill(0.0);
+                let other = names.len();
+                let missing = other + usize::from(pooled.is_some());
+                let slot = match cell {
+                    Cell::Text(t) => levels.get(t).copied(),
+                    Cell::Missing if *missing_level => Some(Slot::Level(missing)),
+                    Cell::Missing => match fill {
+                        Some(f) => levels.get(f.as_str()).copied(),
+                        None if unseen == UnseenPolicy::Error => return Err(CellProblem::Missing),
+                        None => None,
+                    },
+                    Cell::Number(_) => return Err(CellProblem::NotACategory),
+                };
+                match slot {
+                    Some(Slot::Level(i)) => out[i] = 1.0,
+                    Some(Slot::Pooled) => out[other] = 1.0,
+                    None if unseen == UnseenPolicy::Error => {
+                        return Err(CellProblem::UnseenCategory)
+                    }
+                    None => {
+                        outcome.unseen = true;
+                        if pooled.is_some() {
+                            out[other] = 1.0;
+                        } else {
+                            out.fill(f64::NAN);
+                        }
+                    }
+                }
+            }
+            FeatureEncoding::Date {
+                fill,
+                missing_flag,
+                with_time,
+                ..
+            } => {
+                let parts = match cell {
+                    Cell::Text(t) => Some(parse_iso_date(t).ok_or(CellProblem::NotADate)?),
+                    Cell::Missing => None,
+                    Cell::Number(_) => return Err(CellProblem::NotADate),
+                };
+                match parts {
+                    Some(p) => {
+                        outcome.value = Some(p.days);
+                        write_date(&p, *with_time, out);
+                    }
+                    None => {
+                        let days = fill.ok_or(CellProblem::Missing)?;
+                        write_date(&date_parts(days, false), *with_time, out);
+                    }
+                }
+                if *missing_flag {
+                    out[self.width() - 1] = if parts.is_none() { 1.0 } else { 0.0 };
+                }
+            }
+        }
+        Ok(outcome)
+    }
+}
+
+fn write_date(p: &super::DateParts, with_time: bool, out: &mut [f64]) {
+    let tau = std::f64::consts::TAU;
+    out[0] = p.days;
+    out[1] = (tau * p.year_turn()).sin();
+    out[2] = (tau * p.year_turn()).cos();
+    out[3] = (tau * p.week_turn()).sin();
+    out[4] = (tau * p.week_turn()).cos();
+    if with_time {
+        out[5] = (tau * p.day_turn()).sin();
+        out[6] = (tau * p.day_turn()).cos();
+    }
+}
+
+/// One cell of a row to encode or predict, in the model's feature order.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub enum Cell<'a> {
+    /// A number.
+    Number(f64),
+    /// A category or a date.
+    Text(&'a str),
+    /// An empty cell.
+    Missing,
+}
+
+/// What is wrong with a cell.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum CellProblem {
+    /// The row has the wrong number of cells.
+    WrongLength,
+    /// Empty, and the model has no way to fill it.
+    Missing,
+    /// A category not seen in training (under [`UnseenPolicy::Error`]).
+    UnseenCategory,
+    /// Text where a number is expected.
+    NotANumber,
+    /// A number where a category is expected.
+    NotACategory,
+    /// Not an ISO 8601 date where a date is expected.
+    NotADate,
+    /// A number that is not finite.
+    NonFinite,
+}
+
+/// What encoding a cell found besides its inputs.
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct CellOutcome {
+    /// A category never seen in training (predicted through the pooled or average level).
+    pub unseen: bool,
+    /// The value of a numeric or date cell, for the range check (None if filled or text).
+    pub value: Option<f64>,
+}
+
+/// Where a known category value goes.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Slot {
+    /// Its own input.
+    Level(usize),
+    /// The pooled input.
+    Pooled,
+}
+
+/// Per feature, a lookup from category text to its input (empty for other features).
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct LevelIndex {
+    /// One map per feature, in feature order.
+    pub maps: Vec<HashMap<String, Slot>>,
+}
+
+impl LevelIndex {
+    /// The lookups of every feature of `encoder`.
+    pub fn new(encoder: &Encoder) -> LevelIndex {
+        let maps = encoder
+            .features
+            .iter()
+            .map(|f| match f {
+                FeatureEncoding::Category { levels, pooled, .. } => levels
+                    .iter()
+                    .enumerate()
+                    .map(|(i, l)| (l.clone(), Slot::Level(i)))
+                    .chain(pooled.iter().flatten().map(|l| (l.clone(), Slot::Pooled)))
+                    .collect(),
+                _ => HashMap::new(),
+            })
+            .collect();
+        LevelIndex { maps }
+    }
+}
+
+/// What became of one column of the table, with the reason.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct ColumnNote {
+    /// Column name.
+    pub name: String,
+    /// The column feeds the network.
+    pub used: bool,
+    /// What it became and why, in words.
+    pub what: String,
 }
 
 /// How the target column is encoded.
@@ -94,46 +450,97 @@ pub struct Encoder {
     pub target: TargetEncoding,
     /// Imputation in use, if any.
     pub impute: Option<Impute>,
+    /// What an unseen category gets at prediction time.
+    #[serde(default)]
+    pub unseen: UnseenPolicy,
+    /// What became of every column, with the reason.
+    #[serde(default)]
+    pub columns: Vec<ColumnNote>,
+    /// Warnings about the data found while fitting (likely leaks, a skewed target, many
+    /// levels).
+    #[serde(default)]
+    pub warnings: Vec<String>,
 }
 
 impl Encoder {
-    /// Fits the encoding on the rows `train` of `table`.
+    /// Fits the encoding: category levels and column roles from every row of `table` (the
+    /// rows handed to training), ranges, fill values and warnings from the rows `train`.
     pub fn fit(table: &Table, spec: &EncoderSpec, train: &[usize]) -> Result<Encoder, DataError> {
         let target = table.column(&spec.target)?;
-        if !matches!(target.data, ColumnData::Number(_)) {
+        let ColumnData::Number(y) = &target.data else {
             return Err(DataError::Table {
                 source_name: table.source.clone(),
                 message: format!("the target column '{}' is not numeric", spec.target),
             });
-        }
-        let names: Vec<String> = match &spec.features {
-            Some(list) => list.clone(),
-            None => table
-                .columns
-                .iter()
-                .filter(|c| c.name != spec.target)
-                .map(|c| c.name.clone())
-                .collect(),
         };
-        if names.is_empty() {
+        check_names(table, spec)?;
+        let mut features = Vec::new();
+        let mut columns = Vec::new();
+        let mut warnings = Vec::new();
+        for column in &table.columns {
+            let name = column.name.as_str();
+            if name == spec.target {
+                columns.push(note(name, false, "target".to_string()));
+                continue;
+            }
+            let listed = spec.features.as_ref().map(|f| f.iter().any(|n| n == name));
+            if listed == Some(false) {
+                columns.push(note(name, false, "left out: not in --features".to_string()));
+                continue;
+            }
+            if spec.drop.iter().any(|n| n == name) {
+                columns.push(note(name, false, "left out: --drop-columns".to_string()));
+                continue;
+            }
+            let forced = listed == Some(true) || spec.keep.iter().any(|n| n == name);
+            let fitted = match &column.data {
+                ColumnData::Number(values) => fit_number(table, name, values, train, spec, forced)?,
+                ColumnData::Text(values) => fit_text(table, name, values, train, spec, forced)?,
+            };
+            match fitted {
+                Fitted::Used {
+                    encoding,
+                    what,
+                    warning,
+                } => {
+                    if let Some(w) = warning {
+                        warnings.push(w);
+                    }
+                    if let Some(w) = leak_warning(&encoding, &column.data, y, train) {
+                        warnings.push(w);
+                    }
+                    columns.push(note(name, true, what));
+                    features.push(encoding);
+                }
+                Fitted::LeftOut { why, warning } => {
+                    if let Some(w) = warning {
+                        warnings.push(w);
+                    }
+                    columns.push(note(name, false, format!("left out: {why}")));
+                }
+            }
+        }
+        if let Some(order) = &spec.features {
+            features.sort_by_key(|f| order.iter().position(|n| n == f.name()));
+        }
+        if features.is_empty() {
             return Err(DataError::Table {
                 source_name: table.source.clone(),
-                message: "no feature columns: the table has only the target".to_string(),
+                message: format!(
+                    "no usable feature columns: {}",
+                    list_some(
+                        columns
+                            .iter()
+                            .map(|c: &ColumnNote| format!("{} ({})", c.name, c.what)),
+                        10
+                    )
+                ),
             });
         }
-        let mut features = Vec::with_capacity(names.len());
-        for name in &names {
-            if name == &spec.target {
-                return Err(DataError::Table {
-                    source_name: table.source.clone(),
-                    message: format!("'{name}' is both the target and a feature"),
-                });
+        if !spec.log_target {
+            if let Some(w) = skew_warning(&spec.target, y, train) {
+                warnings.push(w);
             }
-            let column = table.column(name)?;
-            features.push(match &column.data {
-                ColumnData::Number(values) => fit_number(table, name, values, train, spec.impute)?,
-                ColumnData::Text(values) => fit_text(table, name, values, train, spec.impute)?,
-            });
         }
         Ok(Encoder {
             features,
@@ -142,6 +549,9 @@ impl Encoder {
                 log: spec.log_target,
             },
             impute: spec.impute,
+            unseen: spec.unseen,
+            columns,
+            warnings,
         })
     }
 
@@ -150,21 +560,25 @@ impl Encoder {
         self.features.iter().map(|f| f.width()).sum()
     }
 
-    /// Input column names after encoding ("column" or "column=level").
+    /// Input names after encoding ("column", "column=level", "column:days", ...).
     pub fn input_names(&self) -> Vec<String> {
+        self.features.iter().flat_map(|f| f.input_names()).collect()
+    }
+
+    /// Names of the feature columns a table must read as text (categories and dates), so
+    /// that prediction reads each column as the model was trained on it.
+    pub fn text_columns(&self) -> Vec<String> {
         self.features
             .iter()
-            .flat_map(|f| match f {
-                FeatureEncoding::Number { name, .. } => vec![name.clone()],
-                FeatureEncoding::Category { name, levels, .. } => {
-                    levels.iter().map(|l| format!("{name}={l}")).collect()
-                }
-            })
+            .filter(|f| f.reads_as_text())
+            .map(|f| f.name().to_string())
             .collect()
     }
 
-    /// Encodes the feature columns of `rows` (all rows if None). An empty cell without
-    /// imputation, or a level not seen in training, is an error naming line and column.
+    /// Encodes the feature columns of `rows` (all rows if None) of the rows the encoder was
+    /// fitted on. An empty numeric cell without imputation, or a category not seen when
+    /// fitting, is an error naming line and column (serve new rows through
+    /// [`crate::Predictor`], which flags them instead).
     pub fn encode_inputs<F: Scalar>(
         &self,
         table: &Table,
@@ -178,61 +592,24 @@ impl Encoder {
                 &all
             }
         };
+        let index = LevelIndex::new(self);
         let mut out = Array2::zeros((rows.len(), self.width()));
+        let mut buffer = vec![0.0; self.features.iter().map(|f| f.width()).max().unwrap_or(0)];
         let mut offset = 0;
-        for feature in &self.features {
+        for (i, feature) in self.features.iter().enumerate() {
             let column = table.column(feature.name())?;
-            match (feature, &column.data) {
-                (FeatureEncoding::Number { name, fill, .. }, ColumnData::Number(values)) => {
-                    for (k, &r) in rows.iter().enumerate() {
-                        let v = values[r];
-                        out[(k, offset)] = F::of(if v.is_nan() {
-                            fill.ok_or_else(|| missing(table, r, name))?
-                        } else {
-                            v
-                        });
-                    }
-                }
-                (FeatureEncoding::Category { name, levels, fill }, ColumnData::Text(values)) => {
-                    let index: HashMap<&str, usize> = levels
-                        .iter()
-                        .enumerate()
-                        .map(|(i, l)| (l.as_str(), i))
-                        .collect();
-                    for (k, &r) in rows.iter().enumerate() {
-                        let value = match (&values[r], fill) {
-                            (Some(v), _) => v.as_str(),
-                            (None, Some(f)) => f.as_str(),
-                            (None, None) => return Err(missing(table, r, name)),
-                        };
-                        let level = index.get(value).ok_or_else(|| {
-                            table.cell_error(
-                                r,
-                                name,
-                                format!(
-                                    "category '{value}' was not seen in training (known: {})",
-                                    levels.join(", ")
-                                ),
-                            )
-                        })?;
-                        out[(k, offset + level)] = F::one();
-                    }
-                }
-                _ => {
-                    return Err(DataError::Table {
-                        source_name: table.source.clone(),
-                        message: format!(
-                            "column '{}' changed type: the model expects {}",
-                            feature.name(),
-                            match feature {
-                                FeatureEncoding::Number { .. } => "numbers",
-                                FeatureEncoding::Category { .. } => "text",
-                            }
-                        ),
-                    })
+            let w = feature.width();
+            for (k, &r) in rows.iter().enumerate() {
+                let cell = column.cell(r);
+                let slots = &mut buffer[..w];
+                feature
+                    .encode_cell(&index.maps[i], UnseenPolicy::Error, cell, slots)
+                    .map_err(|p| table.cell_error(r, feature.name(), describe(p, cell)))?;
+                for (j, v) in slots.iter().enumerate() {
+                    out[(k, offset + j)] = F::of(*v);
                 }
             }
-            offset += feature.width();
+            offset += w;
         }
         Ok(out)
     }
@@ -284,11 +661,79 @@ impl Encoder {
     }
 }
 
-fn missing(table: &Table, row: usize, column: &str) -> DataError {
+/// A message for a cell problem found while encoding a table.
+fn describe(problem: CellProblem, cell: Cell<'_>) -> String {
+    match (problem, cell) {
+        (CellProblem::Missing, _) => "the cell is empty; fill it, or turn on imputation (--impute \
+                                      mean, median or most-frequent)"
+            .to_string(),
+        (CellProblem::UnseenCategory, Cell::Text(t)) => {
+            format!("category '{t}' was not seen when the encoder was fitted")
+        }
+        (CellProblem::NotADate, _) => "not an ISO 8601 date (YYYY-MM-DD[THH:MM[:SS]])".to_string(),
+        (CellProblem::NotANumber, _) => "text where the model expects a number".to_string(),
+        (CellProblem::NotACategory, _) => "a number where the model expects text".to_string(),
+        _ => "the cell cannot be encoded".to_string(),
+    }
+}
+
+fn note(name: &str, used: bool, what: String) -> ColumnNote {
+    ColumnNote {
+        name: name.to_string(),
+        used,
+        what,
+    }
+}
+
+/// Every name in the spec's column lists exists, and none appears twice.
+fn check_names(table: &Table, spec: &EncoderSpec) -> Result<(), DataError> {
+    let lists: [(&str, &[String]); 3] = [
+        ("--features", spec.features.as_deref().unwrap_or(&[])),
+        ("--keep-columns", &spec.keep),
+        ("--drop-columns", &spec.drop),
+    ];
+    for (option, names) in lists {
+        for (i, name) in names.iter().enumerate() {
+            table.column(name)?;
+            if names[..i].contains(name) {
+                return Err(DataError::Table {
+                    source_name: table.source.clone(),
+                    message: format!("{option} names '{name}' twice"),
+                });
+            }
+            if name == &spec.target {
+                return Err(DataError::Table {
+                    source_name: table.source.clone(),
+                    message: format!("'{name}' is both the target and in {option}"),
+                });
+            }
+        }
+    }
+    Ok(())
+}
+
+/// The outcome of fitting one column.
+enum Fitted {
+    Used {
+        encoding: FeatureEncoding,
+        what: String,
+        warning: Option<String>,
+    },
+    LeftOut {
+        why: String,
+        warning: Option<String>,
+    },
+}
+
+fn missing_error(table: &Table, row: usize, column: &str, count: usize) -> DataError {
     table.cell_error(
         row,
         column,
-        "the cell is empty; fill it, or turn on imputation (mean, median or most-frequent)",
+        format!(
+            "the cell is empty ({count} empty cells in this column); fill them, or turn on \
+             imputation with --impute mean, median or most-frequent (library: \
+             EncoderSpec::impute), which also adds a was-missing input"
+        ),
     )
 }
 
@@ -297,23 +742,21 @@ fn fit_number(
     name: &str,
     values: &[f64],
     train: &[usize],
-    impute: Option<Impute>,
-) -> Result<FeatureEncoding, DataError> {
-    let mut seen: Vec<f64> = Vec::with_capacity(train.len());
-    for &r in train {
-        let v = values[r];
-        if v.is_nan() {
-            if impute.is_none() {
-                return Err(missing(table, r, name));
-            }
-        } else {
-            seen.push(v);
-        }
-    }
+    spec: &EncoderSpec,
+    forced: bool,
+) -> Result<Fitted, DataError> {
+    let empty: Vec<usize> = (0..values.len()).filter(|&r| values[r].is_nan()).collect();
+    let mut seen: Vec<f64> = train
+        .iter()
+        .map(|&r| values[r])
+        .filter(|v| !v.is_nan())
+        .collect();
     if seen.is_empty() {
-        return Err(DataError::Table {
-            source_name: table.source.clone(),
-            message: format!("column '{name}' has no values in the training rows"),
+        return Ok(Fitted::LeftOut {
+            why: "no values in the training rows".to_string(),
+            warning: Some(format!(
+                "column '{name}' is empty in every training row: left out"
+            )),
         });
     }
     let (min, max) = seen
@@ -321,30 +764,48 @@ fn fit_number(
         .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
             (a.min(v), b.max(v))
         });
-    let fill = impute.map(|how| match how {
-        Impute::Mean => seen.iter().sum::<f64>() / seen.len() as f64,
-        Impute::Median => {
-            let mut sorted = seen.clone();
-            sorted.sort_by(f64::total_cmp);
-            let n = sorted.len();
-            if n % 2 == 1 {
-                sorted[n / 2]
-            } else {
-                0.5 * (sorted[n / 2 - 1] + sorted[n / 2])
-            }
-        }
-        Impute::MostFrequent => {
-            let mut sorted = seen.clone();
-            sorted.sort_by(f64::total_cmp);
-            most_frequent(&sorted).copied().unwrap_or(sorted[0])
-        }
-    });
-    Ok(FeatureEncoding::Number {
-        name: name.to_string(),
-        fill,
-        min,
-        max,
+    if min == max && empty.is_empty() && !forced {
+        return Ok(Fitted::LeftOut {
+            why: format!("constant (every value is {min})"),
+            warning: None,
+        });
+    }
+    let impute = match (spec.impute, empty.first()) {
+        (_, None) => None,
+        (Some(how), Some(_)) => Some(how),
+        (None, Some(&r)) => return Err(missing_error(table, r, name, empty.len())),
+    };
+    seen.sort_by(f64::total_cmp);
+    let fill = impute.map(|how| profile::fill_value(&seen, how));
+    let what = match fill {
+        Some(v) => format!(
+            "number, range [{min}, {max}]; {} empty cells filled with {} {v} (+ a was-missing \
+             input)",
+            empty.len(),
+            impute_name(impute)
+        ),
+        None => format!("number, range [{min}, {max}]"),
+    };
+    Ok(Fitted::Used {
+        encoding: FeatureEncoding::Number {
+            name: name.to_string(),
+            fill,
+            min,
+            max,
+            missing_flag: fill.is_some(),
+        },
+        what,
+        warning: None,
     })
+}
+
+fn impute_name(how: Option<Impute>) -> &'static str {
+    match how {
+        Some(Impute::Mean) => "the mean",
+        Some(Impute::Median) => "the median",
+        Some(Impute::MostFrequent) => "the most frequent value",
+        None => "nothing",
+    }
 }
 
 fn fit_text(
@@ -352,51 +813,217 @@ fn fit_text(
     name: &str,
     values: &[Option<String>],
     train: &[usize],
-    impute: Option<Impute>,
-) -> Result<FeatureEncoding, DataError> {
-    let mut seen: Vec<&str> = Vec::with_capacity(train.len());
-    for &r in train {
-        match &values[r] {
-            Some(v) => seen.push(v),
-            None if impute.is_none() => return Err(missing(table, r, name)),
-            None => {}
-        }
-    }
-    seen.sort_unstable();
-    let mut levels: Vec<String> = Vec::new();
-    for v in &seen {
-        if levels.last().map(|l| l.as_str()) != Some(v) {
-            levels.push(v.to_string());
-        }
-    }
-    if levels.is_empty() {
-        return Err(DataError::Table {
-            source_name: table.source.clone(),
-            message: format!("column '{name}' has no values in the training rows"),
+    spec: &EncoderSpec,
+    forced: bool,
+) -> Result<Fitted, DataError> {
+    let profile = TextProfile::of(values);
+    let filled = values.len() - profile.missing;
+    if profile.counts.is_empty() {
+        return Ok(Fitted::LeftOut {
+            why: "every cell is empty".to_string(),
+            warning: None,
         });
     }
-    let fill =
-        impute.map(|_| most_frequent(&seen).map_or_else(|| levels[0].clone(), |s| s.to_string()));
-    Ok(FeatureEncoding::Category {
-        name: name.to_string(),
-        levels,
-        fill,
+    let distinct = profile.counts.len();
+    if !forced
+        && filled >= IDENTIFIER_MIN_ROWS
+        && distinct as f64 >= IDENTIFIER_SHARE * filled as f64
+    {
+        return Ok(Fitted::LeftOut {
+            why: format!("identifier-like ({distinct} distinct values in {filled} filled cells)"),
+            warning: Some(format!(
+                "column '{name}' looks like an identifier ({distinct} distinct values in \
+                 {filled} rows) and is left out (--keep-columns {name} uses it)"
+            )),
+        });
+    }
+    if !forced && distinct == 1 && profile.missing == 0 {
+        return Ok(Fitted::LeftOut {
+            why: format!(
+                "constant (every value is '{}')",
+                profile.counts.keys().next().map_or("", |s| s.as_str())
+            ),
+            warning: None,
+        });
+    }
+    if profile.all_dates {
+        return fit_date(table, name, values, train, spec);
+    }
+    let split = profile.split_levels(spec.min_level_rows, spec.max_levels);
+    let mut what = format!("category, {} levels one-hot", split.kept.len());
+    let mut warning = None;
+    if !split.pooled.is_empty() {
+        let rare = split.pooled.len() - split.capped;
+        what += &format!(", {} levels pooled into {OTHER_LEVEL}", split.pooled.len());
+        if rare > 0 {
+            what += &format!(" ({rare} seen in fewer than {} rows", spec.min_level_rows);
+            what += if split.capped > 0 { ", " } else { ")" };
+        }
+        if split.capped > 0 {
+            what += &format!(
+                "{}{} beyond the {} most frequent)",
+                if rare > 0 { "" } else { " (" },
+                split.capped,
+                spec.max_levels
+            );
+            warning = Some(format!(
+                "column '{name}' has {distinct} levels: the {} most frequent are kept and \
+                 {} are pooled into {OTHER_LEVEL}",
+                split.kept.len(),
+                split.pooled.len()
+            ));
+        }
+    }
+    if profile.missing > 0 {
+        what += &format!(", {} empty cells as {MISSING_LEVEL}", profile.missing);
+    }
+    if profile
+        .counts
+        .keys()
+        .all(|l| super::parse_number(l).is_some())
+    {
+        what += " (numbers read as text: codes)";
+    }
+    Ok(Fitted::Used {
+        encoding: FeatureEncoding::Category {
+            name: name.to_string(),
+            levels: split.kept,
+            fill: None,
+            pooled: (!split.pooled.is_empty()).then_some(split.pooled),
+            missing_level: profile.missing > 0,
+        },
+        what,
+        warning,
     })
 }
 
-/// The most frequent item of a sorted slice (the first such, on ties).
-fn most_frequent<T: PartialEq>(sorted: &[T]) -> Option<&T> {
-    let mut best: Option<(&T, usize)> = None;
-    let mut i = 0;
-    while i < sorted.len() {
-        let mut j = i;
-        while j < sorted.len() && sorted[j] == sorted[i] {
-            j += 1;
-        }
-        if best.is_none_or(|(_, n)| j - i > n) {
-            best = Some((&sorted[i], j - i));
-        }
-        i = j;
+fn fit_date(
+    table: &Table,
+    name: &str,
+    values: &[Option<String>],
+    train: &[usize],
+    spec: &EncoderSpec,
+) -> Result<Fitted, DataError> {
+    let parsed = |r: usize| values[r].as_deref().and_then(parse_iso_date);
+    let empty: Vec<usize> = (0..values.len()).filter(|&r| values[r].is_none()).collect();
+    let mut days: Vec<f64> = train
+        .iter()
+        .filter_map(|&r| parsed(r))
+        .map(|p| p.days)
+        .collect();
+    if days.is_empty() {
+        return Ok(Fitted::LeftOut {
+            why: "no dates in the training rows".to_string(),
+            warning: None,
+        });
     }
-    best.map(|(v, _)| v)
+    let impute = match (spec.impute, empty.first()) {
+        (_, None) => None,
+        (Some(how), Some(_)) => Some(how),
+        (None, Some(&r)) => return Err(missing_error(table, r, name, empty.len())),
+    };
+    days.sort_by(f64::total_cmp);
+    let with_time = (0..values.len()).any(|r| parsed(r).is_some_and(|p| p.has_time));
+    let (min, max) = (days[0], days[days.len() - 1]);
+    let fill = impute.map(|how| profile::fill_value(&days, how).floor());
+    Ok(Fitted::Used {
+        encoding: FeatureEncoding::Date {
+            name: name.to_string(),
+            fill,
+            min,
+            max,
+            missing_flag: fill.is_some(),
+            with_time,
+        },
+        what: format!(
+            "ISO date: days since 1970-01-01 with year and week cycles{}{}",
+            if with_time {
+                " and the time of day"
+            } else {
+                ""
+            },
+            if fill.is_some() {
+                format!(
+                    "; {} empty cells filled (+ a was-missing input)",
+                    empty.len()
+                )
+            } else {
+                String::new()
+            }
+        ),
+        warning: None,
+    })
+}
+
+/// A likely leak: one input explains nearly all the target's variance on the training rows.
+fn leak_warning(
+    encoding: &FeatureEncoding,
+    data: &ColumnData,
+    y: &[f64],
+    train: &[usize],
+) -> Option<String> {
+    let (share, measure) = match (encoding, data) {
+        (FeatureEncoding::Number { .. }, ColumnData::Number(x)) => (
+            profile::r_squared(train.iter().map(|&r| (x[r], y[r]))),
+            "r²",
+        ),
+        (FeatureEncoding::Date { .. }, ColumnData::Text(x)) => (
+            profile::r_squared(train.iter().map(|&r| {
+                let d = x[r].as_deref().and_then(parse_iso_date);
+                (d.map_or(f64::NAN, |p| p.days), y[r])
+            })),
+            "r²",
+        ),
+        (FeatureEncoding::Category { levels, .. }, ColumnData::Text(x)) => {
+            if levels.len() * 10 > train.len() {
+                return None;
+            }
+            (
+                profile::eta_squared(train.iter().map(|&r| (x[r].as_deref(), y[r]))),
+                "η² (share of variance between its levels)",
+            )
+        }
+        _ => return None,
+    };
+    (share >= LEAK_SHARE).then(|| {
+        format!(
+            "column '{}' alone explains {:.1}% of the target's variance on the training rows \
+             ({measure}): a likely leak or proxy of the target; make sure it is known when \
+             predictions are made, or leave it out (--drop-columns {})",
+            encoding.name(),
+            100.0 * share,
+            encoding.name()
+        )
+    })
+}
+
+/// Advice for a strongly right-skewed positive target.
+fn skew_warning(target: &str, y: &[f64], train: &[usize]) -> Option<String> {
+    let v: Vec<f64> = train
+        .iter()
+        .map(|&r| y[r])
+        .filter(|v| !v.is_nan())
+        .collect();
+    if v.len() < 3 || v.iter().any(|&t| t <= 0.0) {
+        return None;
+    }
+    let skew = profile::skewness(&v);
+    (skew >= SKEW_ADVICE).then(|| {
+        format!(
+            "the target '{target}' is positive and right-skewed (sample skewness {skew:.2}): \
+             --log-target (model ln of it) often fits such targets better; compare both on \
+             held-out rows"
+        )
+    })
+}
+
+impl super::Column {
+    /// Cell `row` as an encoder input.
+    pub fn cell(&self, row: usize) -> Cell<'_> {
+        match &self.data {
+            ColumnData::Number(v) if v[row].is_nan() => Cell::Missing,
+            ColumnData::Number(v) => Cell::Number(v[row]),
+            ColumnData::Text(v) => v[row].as_deref().map_or(Cell::Missing, Cell::Text),
+        }
+    }
 }

@@ -1,9 +1,20 @@
 //! Tables of named columns read from CSV, and their encoding for a network.
 
+mod build;
+mod dates;
 mod encoder;
+mod profile;
 mod split;
 
-pub use encoder::{Encoder, EncoderSpec, FeatureEncoding, Impute, TargetEncoding};
+use build::TableBuilder;
+pub use build::{MISSING_MARKERS, STRAY_SHARE, TYPING_ROWS};
+pub use dates::{civil_from_days, date_parts, parse_iso_date, DateParts};
+
+pub use encoder::{
+    Cell, CellOutcome, CellProblem, ColumnNote, Encoder, EncoderSpec, FeatureEncoding, Impute,
+    LevelIndex, Slot, TargetEncoding, UnseenPolicy, DEFAULT_MAX_LEVELS, DEFAULT_MIN_LEVEL_ROWS,
+    MISSING_LEVEL, OTHER_LEVEL,
+};
 pub use split::{holdout, kfold, stratified_kfold};
 
 use serde::{Deserialize, Serialize};
@@ -79,6 +90,9 @@ pub struct ReadOptions {
     pub text_columns: Vec<String>,
     /// Treat "NaN", "inf" and friends as missing cells instead of refusing them.
     pub allow_non_finite: bool,
+    /// Columns read as text when the file has them (a model's categories and dates); unlike
+    /// `text_columns`, a name the file lacks is not an error here.
+    pub model_text_columns: Vec<String>,
 }
 
 /// A table read from CSV: named, typed columns and the file line of every row.
@@ -104,8 +118,12 @@ impl Table {
     }
 
     /// Reads CSV with a header row from any reader, row by row: the raw text is never held
-    /// whole, only the parsed cells. A column's type comes from its first non-empty cell: if it
-    /// is a number the column is numeric, and any later non-number in it is an error.
+    /// whole, only the parsed cells. A column's type comes from the non-empty cells of its first
+    /// [`TYPING_ROWS`] rows (the typing sample): numeric if every one of them is a number or a
+    /// missing-value marker ([`MISSING_MARKERS`], read as empty), text if more than
+    /// [`STRAY_SHARE`] of them are not numbers, and an error naming the first stray lines and
+    /// values in between (a numeric column with a few damaged cells). After the sample, a cell
+    /// that does not fit its column's type is an error naming its line.
     pub fn read(
         reader: impl Read,
         source: &str,
@@ -135,13 +153,17 @@ impl Table {
                 return Err(table_error(format!("column name '{h}' appears twice")));
             }
         }
-        let mut kinds: Vec<Option<bool>> = headers
+        if let Some(unknown) = options
+            .text_columns
             .iter()
-            .map(|h| options.text_columns.iter().any(|t| t == h).then_some(false))
-            .collect();
-        let mut numbers: Vec<Vec<f64>> = vec![Vec::new(); headers.len()];
-        let mut texts: Vec<Vec<Option<String>>> = vec![Vec::new(); headers.len()];
-        let mut lines = Vec::new();
+            .find(|t| !headers.iter().any(|h| h == t.as_str()))
+        {
+            return Err(table_error(format!(
+                "--text-columns names '{unknown}', which is not a column; the columns are: {}",
+                list_some(headers.iter(), 30)
+            )));
+        }
+        let mut builder = TableBuilder::new(source, &headers, options);
         let mut record = csv::StringRecord::new();
         loop {
             match csv.read_record(&mut record) {
@@ -155,88 +177,18 @@ impl Table {
                         } => {
                             format!("line {line}: {len} fields where the header has {expected_len}")
                         }
+                        csv::ErrorKind::Utf8 { .. } => format!(
+                            "line {line}: the text is not valid UTF-8; re-encode the file as UTF-8"
+                        ),
                         _ => format!("line {line}: {e}"),
                     };
                     return Err(table_error(message));
                 }
             }
             let line = record.position().map_or(0, |p| p.line());
-            let row = lines.len();
-            lines.push(line);
-            for (c, cell) in record.iter().enumerate() {
-                let cell_error = |message: String| DataError::Cell {
-                    source_name: source.to_string(),
-                    line,
-                    column: headers[c].to_string(),
-                    message,
-                };
-                if cell.is_empty() {
-                    match kinds[c] {
-                        Some(false) => texts[c].push(None),
-                        _ => numbers[c].push(f64::NAN),
-                    }
-                    continue;
-                }
-                let parsed = parse_number(cell);
-                let numeric = match kinds[c] {
-                    Some(k) => k,
-                    None => {
-                        let k = parsed.is_some();
-                        kinds[c] = Some(k);
-                        if !k {
-                            // Earlier cells were all empty: carry them over as missing text.
-                            texts[c] = vec![None; row];
-                            numbers[c].clear();
-                        }
-                        k
-                    }
-                };
-                if !numeric {
-                    texts[c].push(Some(cell.to_string()));
-                    continue;
-                }
-                match parsed {
-                    Some(v) if v.is_finite() => numbers[c].push(v),
-                    Some(_) if options.allow_non_finite => numbers[c].push(f64::NAN),
-                    Some(_) => {
-                        return Err(cell_error(format!(
-                            "'{cell}' is not a finite number (allow non-finite values to read \
-                             them as missing)"
-                        )))
-                    }
-                    None => {
-                        return Err(cell_error(format!(
-                            "'{cell}' is not a number, but the column is numeric (its first \
-                             value was a number); mark the column as text if it is a category"
-                        )))
-                    }
-                }
-            }
+            builder.push(&record, line)?;
         }
-        if lines.is_empty() {
-            return Err(table_error("no data rows after the header".to_string()));
-        }
-        // Give back the slack of the growing vectors.
-        numbers.iter_mut().for_each(|v| v.shrink_to_fit());
-        texts.iter_mut().for_each(|v| v.shrink_to_fit());
-        lines.shrink_to_fit();
-        let columns = headers
-            .iter()
-            .enumerate()
-            .map(|(c, name)| Column {
-                name: name.to_string(),
-                data: if kinds[c] == Some(false) {
-                    ColumnData::Text(std::mem::take(&mut texts[c]))
-                } else {
-                    ColumnData::Number(std::mem::take(&mut numbers[c]))
-                },
-            })
-            .collect();
-        Ok(Table {
-            source: source.to_string(),
-            columns,
-            lines,
-        })
+        builder.finish()
     }
 
     /// A table of the given rows only (in the order given).
@@ -276,12 +228,9 @@ impl Table {
             .ok_or_else(|| DataError::Table {
                 source_name: self.source.clone(),
                 message: format!(
-                    "no column named '{name}'; the columns are: {}",
-                    self.columns
-                        .iter()
-                        .map(|c| c.name.as_str())
-                        .collect::<Vec<_>>()
-                        .join(", ")
+                    "no column named '{name}'; the columns are: {}{}",
+                    list_some(self.columns.iter().map(|c| c.name.as_str()), 30),
+                    separator_hint(&self.columns)
                 ),
             })
     }
@@ -302,4 +251,32 @@ impl Table {
 /// non-finite value, which the caller decides about.
 pub fn parse_number(text: &str) -> Option<f64> {
     text.parse::<f64>().ok()
+}
+
+/// At most `limit` items joined by ", ", then "and N more" for the rest.
+pub fn list_some<S: AsRef<str>>(items: impl IntoIterator<Item = S>, limit: usize) -> String {
+    let mut items = items.into_iter();
+    let shown: Vec<String> = items
+        .by_ref()
+        .take(limit)
+        .map(|s| s.as_ref().to_string())
+        .collect();
+    match items.count() {
+        0 => shown.join(", "),
+        more => format!("{} and {more} more", shown.join(", ")),
+    }
+}
+
+/// A hint when a one-column header looks like it holds several names split by another
+/// separator.
+fn separator_hint(columns: &[Column]) -> &'static str {
+    match columns {
+        [only] if only.name.contains(';') => {
+            " (the header looks semicolon-separated: relume reads comma-separated files)"
+        }
+        [only] if only.name.contains('\t') => {
+            " (the header looks tab-separated: relume reads comma-separated files)"
+        }
+        _ => "",
+    }
 }

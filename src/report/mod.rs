@@ -93,6 +93,12 @@ pub struct RunReport {
     pub rollbacks: Vec<Rollback>,
     /// How it ended.
     pub final_metrics: FinalMetrics,
+    /// What became of each table column ("name: what"), when trained from a table.
+    #[serde(default)]
+    pub columns: Vec<String>,
+    /// Warnings about the data (likely leaks, a skewed target, pooled levels, empty targets).
+    #[serde(default)]
+    pub data_warnings: Vec<String>,
 }
 
 impl RunReport {
@@ -140,6 +146,8 @@ impl RunReport {
                 stop: summary.stop,
                 extra: Vec::new(),
             },
+            columns: Vec::new(),
+            data_warnings: Vec::new(),
         }
     }
 
