@@ -5,7 +5,9 @@
 //! `curl -s -X POST localhost:8080/predict -d '{"rows":[{"outdoor_c":31,"setpoint_c":-18,"door_openings_per_h":12,"load_t":20,"refrigerant":"co2"}]}'`.
 //!
 //! POST /predict takes `{"rows": [{column: value, ...}, ...]}` and answers
-//! `{"predictions": [{"prediction": x, "extrapolated": bool, "out_of_range": [...]}], "caution": ...}`;
+//! `{"predictions": [{"prediction": x, "extrapolated": bool, "out_of_range": [...],
+//! "unseen_category": [...]}], "caution": ...}` (a category never seen in training is predicted
+//! through the pooled level and named in `unseen_category`);
 //! a malformed request gets 400 and `{"error": reason}`. GET /health answers 200 with the
 //! model's feature names.
 
@@ -74,10 +76,17 @@ async fn predict(State(p): State<Arc<Predictor>>, body: Bytes) -> Response {
                     .filter(|(_, &o)| o)
                     .map(|(n, _)| *n)
                     .collect();
+                let unseen: Vec<&str> = names
+                    .iter()
+                    .zip(scratch.unseen())
+                    .filter(|(_, &u)| u)
+                    .map(|(n, _)| *n)
+                    .collect();
                 out.push(json!({
                     "prediction": pred.value,
                     "extrapolated": pred.extrapolated,
                     "out_of_range": flagged,
+                    "unseen_category": unseen,
                 }));
             }
             Err(e) => return bad_request(format!("row {i}: {}", p.explain(&e))),

@@ -318,17 +318,36 @@ impl Recipe {
         observers: &mut [&mut dyn Observer<F>],
         monitor: Option<MonitorConfig>,
     ) -> Result<(Trained<F>, Option<RunReport>), TrainError> {
+        // Hold out the validation rows here so the scaling is fitted on training rows only.
+        let (train_idx, val_idx) = self.split(x.nrows())?;
+        self.fit_rows(x, y, &train_idx, &val_idx, observers, monitor)
+    }
+
+    /// Trains on the rows `train` of `x` → `y`, early-stopping on the rows `val` (none: no
+    /// validation), with the settings chosen for a table of `x.nrows()` rows; returns the run
+    /// report when a monitor is asked for. Scaling is fitted on the `train` rows only.
+    pub fn fit_rows<F: Scalar>(
+        &self,
+        x: ArrayView2<'_, F>,
+        y: ArrayView2<'_, F>,
+        train_idx: &[usize],
+        val_idx: &[usize],
+        observers: &mut [&mut dyn Observer<F>],
+        monitor: Option<MonitorConfig>,
+    ) -> Result<(Trained<F>, Option<RunReport>), TrainError> {
         let mut network = self
             .plan(x.nrows(), x.ncols(), y.ncols())
             .build::<F>(self.seed)?;
         if x.nrows() != y.nrows() {
             return Err(ShapeError::new("targets", (x.nrows(), y.ncols()), y.dim()).into());
         }
-        let config = self.config_for(x.nrows());
-        // Hold out the validation rows here so the scaling is fitted on training rows only.
-        let (train_idx, val_idx) = self.split(x.nrows())?;
+        let mut config = self.config_for(x.nrows());
+        if val_idx.is_empty() {
+            // No validation rows given: train must not split its own.
+            config.val_frac = 0.0;
+        }
         let rows = |m: ArrayView2<'_, F>, idx: &[usize]| m.select(Axis(0), idx);
-        let (mut xs, mut ys) = (rows(x, &train_idx), rows(y, &train_idx));
+        let (mut xs, mut ys) = (rows(x, train_idx), rows(y, train_idx));
         let inputs = if self.scale_inputs {
             Standardizer::fit(xs.view())
         } else {
@@ -343,8 +362,8 @@ impl Recipe {
         target.apply_in_place(&mut ys);
         let val = (!val_idx.is_empty()).then(|| {
             (
-                inputs.apply(rows(x, &val_idx).view()),
-                target.apply(rows(y, &val_idx).view()),
+                inputs.apply(rows(x, val_idx).view()),
+                target.apply(rows(y, val_idx).view()),
             )
         });
         let val_views = val.as_ref().map(|(vx, vy)| (vx.view(), vy.view()));

@@ -81,12 +81,24 @@ async fn the_service_answers_good_and_malformed_requests() {
         assert_eq!(p[1]["extrapolated"], true);
         assert_eq!(p[1]["out_of_range"], serde_json::json!(["x"]));
         assert!(body["caution"].as_str().unwrap().contains("held-out"));
+        // A category never seen in training: a prediction, flagged.
+        let (status, body) = send(
+            port,
+            "POST",
+            "/predict",
+            r#"{"rows":[{"x":1.0,"kind":"c"}]}"#,
+        )
+        .await;
+        assert_eq!(status, 200, "{body}");
+        assert_eq!(
+            body["predictions"][0]["unseen_category"],
+            serde_json::json!(["kind"])
+        );
 
         for (request, reason) in [
             ("{not json", "not JSON"),
             (r#"{"lines":[]}"#, "\"rows\""),
             (r#"{"rows":[{"x":1.0}]}"#, "'kind' is empty"),
-            (r#"{"rows":[{"x":1.0,"kind":"c"}]}"#, "not seen in training"),
             (
                 r#"{"rows":[{"x":"one","kind":"a"}]}"#,
                 "'x' must be a number",

@@ -45,9 +45,15 @@ fn numbers_parse_strictly_and_errors_name_line_and_column() {
     );
     let err = read("x,y\n1,2\n1,5,3\n").unwrap_err().to_string();
     assert!(err.contains("line 3") && err.contains("3 fields"), "{err}");
-    let err = read("x,y\n1,2\nabc,3\n").unwrap_err().to_string();
-    assert!(err.contains("'abc' is not a number"), "{err}");
-    let err = read("x,y\n1,2\n1;5,3\n").unwrap_err().to_string();
+    // A word among many numbers is a damaged numeric column (typing reads the first 1000 rows).
+    let numbers: String = (0..40).map(|i| format!("{i},{i}\n")).collect();
+    let err = read(&format!("x,y\n1,2\nabc,3\n{numbers}"))
+        .unwrap_err()
+        .to_string();
+    assert!(err.contains("line 3 'abc'"), "{err}");
+    let err = read(&format!("x,y\n1,2\n1;5,3\n{numbers}"))
+        .unwrap_err()
+        .to_string();
     assert!(
         err.contains("'1;5'"),
         "decimal commas and other locales are refused: {err}"
@@ -90,32 +96,47 @@ fn empty_cells_are_errors_unless_imputation_is_on() {
         let spec = EncoderSpec {
             target: "y".into(),
             impute: Some(how),
+            min_level_rows: 1,
             ..EncoderSpec::default()
         };
         let enc = Encoder::fit(&table, &spec, &all).unwrap();
+        assert_eq!(
+            enc.input_names(),
+            ["a", "a:missing", "b=x", "b=y", "b=(missing)"]
+        );
         let x = enc.encode_inputs::<f64>(&table, None).unwrap();
-        assert_eq!(x[(1, 0)], fill, "{how:?}");
-        // The empty text cell takes the most frequent level ("x"), one-hot.
-        assert_eq!(x.row(2).to_vec(), vec![3.0, 1.0, 0.0]);
+        assert_eq!((x[(1, 0)], x[(1, 1)]), (fill, 1.0), "{how:?}");
+        // The empty text cell is its own level.
+        assert_eq!(x.row(2).to_vec(), vec![3.0, 0.0, 0.0, 0.0, 1.0]);
     }
 }
 
 #[test]
-fn categories_come_from_training_rows_only_and_unseen_ones_are_refused() {
+fn categories_come_from_every_row_handed_to_training() {
     let table = read("c,y\nred,1\nblue,2\ngreen,3\nred,4\n").unwrap();
     let spec = EncoderSpec {
         target: "y".into(),
+        min_level_rows: 1,
         ..EncoderSpec::default()
     };
+    // Statistics come from the training rows [0, 1, 3]; levels from every row, so the level
+    // of a validation row (green, row 2) cannot stop training.
     let enc = Encoder::fit(&table, &spec, &[0, 1, 3]).unwrap();
-    assert_eq!(enc.input_names(), vec!["c=blue", "c=red"]);
-    let err = enc
-        .encode_inputs::<f64>(&table, None)
-        .unwrap_err()
-        .to_string();
-    assert!(err.contains("line 4") && err.contains("'green'"), "{err}");
-    let x = enc.encode_inputs::<f64>(&table, Some(&[0, 1])).unwrap();
-    assert_eq!(x.row(0).to_vec(), vec![0.0, 1.0]);
+    assert_eq!(enc.input_names(), vec!["c=blue", "c=green", "c=red"]);
+    let x = enc.encode_inputs::<f64>(&table, None).unwrap();
+    assert_eq!(x.row(2).to_vec(), vec![0.0, 1.0, 0.0]);
+    assert_eq!(x.row(0).to_vec(), vec![0.0, 0.0, 1.0]);
+    // With the default minimum (5 rows) all three are rare and share the pooled level.
+    let pooled = Encoder::fit(
+        &table,
+        &EncoderSpec {
+            min_level_rows: 5,
+            ..spec.clone()
+        },
+        &[0],
+    )
+    .unwrap();
+    assert_eq!(pooled.input_names(), vec!["c=(other)"]);
     let err = Encoder::fit(
         &table,
         &EncoderSpec {
@@ -332,14 +353,24 @@ fn rows_with_unseen_categories_or_out_of_range_values_are_flagged() {
         .unwrap();
     assert!(far.extrapolated);
     assert_eq!(scratch.out_of_range(), &[true, false, false]);
-    let err = predictor
+    // An unseen category is predicted (through the average of the levels: no level was rare
+    // here) and flagged.
+    let unseen = predictor
         .predict_row(
             &[Cell::Number(0.5), Cell::Number(0.2), Cell::Text("west")],
             &mut scratch,
         )
+        .unwrap();
+    assert!(unseen.unseen && !unseen.extrapolated);
+    assert_eq!(scratch.unseen(), &[false, false, true]);
+    let err = predictor
+        .predict_row(
+            &[Cell::Number(0.5), Cell::Text("x"), Cell::Text("east")],
+            &mut scratch,
+        )
         .unwrap_err();
-    assert_eq!((err.feature, err.kind), (2, RowErrorKind::UnseenCategory));
-    assert!(predictor.explain(&err).contains("site"));
+    assert_eq!((err.feature, err.kind), (1, RowErrorKind::NotANumber));
+    assert!(predictor.explain(&err).contains("'b'"));
     let err = predictor
         .predict_row(&[Cell::Number(0.5)], &mut scratch)
         .unwrap_err();
@@ -347,7 +378,7 @@ fn rows_with_unseen_categories_or_out_of_range_values_are_flagged() {
     // The table path flags per row instead of failing the whole table.
     let table = read("a,b,site\n0.5,0.2,west\n0.5,0.2,east\n99,0.2,east\n").unwrap();
     let rows = predictor.predict_table(&table).unwrap();
-    assert!(rows[0].value.is_none() && rows[0].error.as_ref().unwrap().contains("site"));
+    assert!(rows[0].value.is_some() && rows[0].unseen == ["site"]);
     assert!(rows[1].value.is_some() && rows[1].out_of_range.is_empty());
     assert_eq!(rows[2].out_of_range, vec!["a".to_string()]);
     assert_eq!(rows[2].line, 4);

@@ -280,10 +280,10 @@ impl FeatureEncoding {
                 let slot = match cell {
                     Cell::Text(t) => levels.get(t).copied(),
                     Cell::Missing if *missing_level => Some(Slot::Level(missing)),
+                    // No empty cell was seen in training: an error, not a guess.
                     Cell::Missing => match fill {
                         Some(f) => levels.get(f.as_str()).copied(),
-                        None if unseen == UnseenPolicy::Error => return Err(CellProblem::Missing),
-                        None => None,
+                        None => return Err(CellProblem::Missing),
                     },
                     Cell::Number(_) => return Err(CellProblem::NotACategory),
                 };
