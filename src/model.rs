@@ -6,6 +6,8 @@
 //! Loading checks everything and bounds every size before anything is allocated.
 
 use crate::data::{DataError, Encoder, EncoderSpec, FeatureEncoding, Table};
+use crate::ensemble::fit_ensemble;
+use crate::interval::Conformal;
 use crate::layer::LayerSpec;
 use crate::metrics::Metrics;
 use crate::monitor::MonitorConfig;
@@ -13,7 +15,7 @@ use crate::network::Network;
 use crate::recipe::Recipe;
 use crate::report::RunReport;
 use crate::scale::Standardizer;
-use crate::train::{Observer, StopReason, TrainError};
+use crate::train::{StopReason, TrainError};
 use serde::{Deserialize, Serialize};
 use std::path::Path;
 use thiserror::Error;
@@ -33,6 +35,35 @@ pub const MAX_WIDTH: usize = 1 << 16;
 pub const MAX_PARAMS: usize = 1 << 27;
 /// Most layers in a model file.
 pub const MAX_LAYERS: usize = 1024;
+/// Most ensemble members in a model file.
+pub const MAX_MEMBERS: usize = 256;
+
+/// Splits the validation rows into early-stopping rows and calibration rows (seeded halves;
+/// fewer than [`MIN_CALIBRATION_ROWS`] rows all go to early stopping).
+fn split_validation(val_rows: &[usize], seed: u64) -> (Vec<usize>, Vec<usize>) {
+    if val_rows.len() < 2 * MIN_CALIBRATION_ROWS {
+        return (val_rows.to_vec(), Vec::new());
+    }
+    let (stop, cal) =
+        crate::train::holdout_indices(val_rows.len(), val_rows.len() / 2, seed ^ CALIBRATION_SALT);
+    (
+        stop.iter().map(|&i| val_rows[i]).collect(),
+        cal.iter().map(|&i| val_rows[i]).collect(),
+    )
+}
+
+/// The rows of `0..n` not in `taken`.
+fn complement(n: usize, taken: &[usize]) -> Vec<usize> {
+    let mut out = vec![true; n];
+    for &r in taken {
+        out[r] = false;
+    }
+    (0..n).filter(|&r| out[r]).collect()
+}
+
+/// Validation sets smaller than twice this are not split for calibration.
+pub const MIN_CALIBRATION_ROWS: usize = 10;
+const CALIBRATION_SALT: u64 = 0x6361_6c69_6272_6174;
 
 /// How training went, as kept in the model file.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
@@ -57,12 +88,40 @@ pub struct ModelSummary {
     /// File lines of the first of those rows.
     #[serde(default)]
     pub empty_target_lines: Vec<u64>,
+    /// Each ensemble member's seed, epochs and score on the calibration rows.
+    #[serde(default)]
+    pub members: Vec<MemberSummary>,
+    /// L2 strength on weights the members were trained with.
+    #[serde(default)]
+    pub l2: Option<f64>,
+    /// (L2 strength, best early-stopping loss) of each grid point, when it was chosen on the
+    /// data.
+    #[serde(default)]
+    pub penalty_grid: Vec<(f64, Option<f64>)>,
+    /// Rows that calibrated the prediction interval and gave the validation metrics (never
+    /// used for fitting, early stopping or the penalty choice).
+    #[serde(default)]
+    pub calibration_rows: usize,
+}
+
+/// How one ensemble member trained.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct MemberSummary {
+    /// Seed of its initialization and shuffling.
+    pub seed: u64,
+    /// Epochs run.
+    pub epochs_run: usize,
+    /// Epoch whose weights were kept.
+    pub best_epoch: usize,
+    /// RMSE on the calibration rows, in target units.
+    pub rmse: Option<f64>,
 }
 
 /// Lines of rows with an empty target listed at most.
 pub const EMPTY_TARGET_LINES_SHOWN: usize = 5;
 
-/// A trained model: encoder, scaling, network and summary.
+/// A trained model: encoder, scaling, the ensemble's networks, the prediction interval and
+/// the summary.
 #[derive(Debug, Clone)]
 pub struct Model {
     /// Column encoding (with the training ranges of numeric inputs).
@@ -71,8 +130,10 @@ pub struct Model {
     pub inputs: Standardizer,
     /// Scaling of the (possibly log) target.
     pub target: Standardizer,
-    /// The network, on scaled values.
-    pub network: Network<f32>,
+    /// The ensemble's networks on scaled values (at least one); predictions average them.
+    pub members: Vec<Network<f32>>,
+    /// Split-conformal interval, when there were enough calibration rows.
+    pub interval: Option<Conformal>,
     /// How training went.
     pub summary: ModelSummary,
 }
@@ -124,48 +185,39 @@ struct ModelFile {
     input_scaling: Standardizer,
     target_scaling: Standardizer,
     input_width: usize,
+    /// The single network of a version-1 file.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    layers: Vec<LayerSpec>,
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    parameters: Vec<f64>,
+    /// The ensemble's networks (version 2).
+    #[serde(default)]
+    members: Vec<MemberFile>,
+    #[serde(default)]
+    interval: Option<Conformal>,
+    summary: ModelSummary,
+}
+
+/// One network in the file.
+#[derive(Serialize, Deserialize)]
+struct MemberFile {
     layers: Vec<LayerSpec>,
     parameters: Vec<f64>,
-    summary: ModelSummary,
 }
 
 impl Model {
     /// Trains on `table` with `recipe`: the encoder is fitted on the recipe's training rows
-    /// only, the validation metrics are computed in target units, and the run is watched by a
-    /// monitor whose report is returned.
+    /// only, the ensemble early-stops on half of the validation rows and the other half
+    /// calibrates the interval and gives the validation metrics (in target units). The first
+    /// member's run is watched by a monitor whose report is returned.
     pub fn fit(
         table: &Table,
         spec: &EncoderSpec,
         recipe: &Recipe,
         monitor: MonitorConfig,
     ) -> Result<(Model, RunReport), FitError> {
-        Model::fit_observed(table, spec, recipe, monitor, &mut [])
-    }
-
-    /// [`Model::fit`] with more observers (a progress display, say).
-    pub fn fit_observed(
-        table: &Table,
-        spec: &EncoderSpec,
-        recipe: &Recipe,
-        monitor: MonitorConfig,
-        observers: &mut [&mut dyn Observer<f32>],
-    ) -> Result<(Model, RunReport), FitError> {
-        let encoded = Model::prepare(table, spec, recipe)?;
-        Model::fit_prepared(encoded, recipe, monitor, observers)
-    }
-
-    /// [`Model::fit_observed`] that takes the table and frees it as soon as it is encoded, so
-    /// a large table is not held in memory while the network trains.
-    pub fn fit_consuming(
-        table: Table,
-        spec: &EncoderSpec,
-        recipe: &Recipe,
-        monitor: MonitorConfig,
-        observers: &mut [&mut dyn Observer<f32>],
-    ) -> Result<(Model, RunReport), FitError> {
-        let encoded = Model::prepare(&table, spec, recipe)?;
-        drop(table);
-        Model::fit_prepared(encoded, recipe, monitor, observers)
+        let prepared = Model::prepare(table, spec, recipe)?;
+        Model::fit_prepared(prepared, recipe, monitor, &|_, _| {})
     }
 
     /// Leaves out the rows with an empty target, then fits the encoder (levels from every
@@ -190,12 +242,13 @@ impl Model {
         })
     }
 
-    /// Trains on a prepared table (see [`Model::fit`]).
+    /// Trains on a prepared table (see [`Model::fit`]); `done` hears (runs done, runs in
+    /// all) as the ensemble's runs finish.
     pub fn fit_prepared(
-        encoded: Prepared,
+        prepared: Prepared,
         recipe: &Recipe,
         monitor: MonitorConfig,
-        observers: &mut [&mut dyn Observer<f32>],
+        done: &(dyn Fn(usize, usize) + Sync),
     ) -> Result<(Model, RunReport), FitError> {
         let Prepared {
             encoder,
@@ -203,9 +256,19 @@ impl Model {
             y,
             val_rows,
             empty_targets,
-        } = encoded;
-        let (mut trained, mut report) =
-            recipe.fit_reported(x.view(), y.view(), monitor, observers)?;
+        } = prepared;
+        let (stop_rows, calibration) = split_validation(&val_rows, recipe.seed);
+        let train_rows = complement(x.nrows(), &val_rows);
+        let ensemble = fit_ensemble(
+            recipe,
+            x.view(),
+            y.view(),
+            &train_rows,
+            &stop_rows,
+            monitor,
+            done,
+        )?;
+        let mut report = ensemble.report;
         report.columns = encoder
             .columns
             .iter()
@@ -218,25 +281,48 @@ impl Model {
                 empty_targets.0, empty_targets.1
             ));
         }
-        let validation = (!val_rows.is_empty()).then(|| {
-            let xv = x.select(ndarray::Axis(0), &val_rows);
-            let pred = trained.predict(xv.view()).expect("encoded widths match");
-            let predictions: Vec<f64> = pred
-                .iter()
-                .map(|&p| encoder.decode_target(p as f64))
-                .collect();
-            let targets: Vec<f64> = val_rows
-                .iter()
-                .map(|&r| encoder.decode_target(y[(r, 0)] as f64))
-                .collect();
-            Metrics::compute(&predictions, &targets)
-        });
+        let mut members = ensemble.members;
+        // Predictions on the calibration rows, per member, on the network's target scale.
+        let xc = x.select(ndarray::Axis(0), &calibration);
+        let per_member: Vec<Vec<f64>> = members
+            .iter_mut()
+            .map(|m| {
+                m.predict(xc.view())
+                    .expect("encoded widths match")
+                    .iter()
+                    .map(|&p| f64::from(p))
+                    .collect()
+            })
+            .collect();
+        let truth: Vec<f64> = calibration.iter().map(|&r| f64::from(y[(r, 0)])).collect();
+        let average: Vec<f64> = (0..calibration.len())
+            .map(|i| per_member.iter().map(|p| p[i]).sum::<f64>() / per_member.len() as f64)
+            .collect();
+        let residuals: Vec<f64> = average.iter().zip(&truth).map(|(p, t)| t - p).collect();
+        let interval = Conformal::calibrate(&residuals, recipe.coverage);
+        let decode =
+            |v: &[f64]| -> Vec<f64> { v.iter().map(|&p| encoder.decode_target(p)).collect() };
+        let validation =
+            (!calibration.is_empty()).then(|| Metrics::compute(&decode(&average), &decode(&truth)));
+        let member_summaries = members
+            .iter()
+            .zip(&per_member)
+            .enumerate()
+            .map(|(m, (t, p))| MemberSummary {
+                seed: recipe.seed.wrapping_add(m as u64),
+                epochs_run: t.summary.history.len(),
+                best_epoch: t.summary.best_epoch,
+                rmse: (!calibration.is_empty())
+                    .then(|| Metrics::compute(&decode(p), &decode(&truth)).rmse),
+            })
+            .collect();
         let dead_fractions = report
             .epochs
             .last()
             .map(|e| e.layers.iter().map(|l| l.dead_fraction).collect())
             .unwrap_or_default();
-        let s = &trained.summary;
+        let first = &members[0];
+        let s = &first.summary;
         let summary = ModelSummary {
             train_rows: s.rows.0,
             val_rows: s.rows.1,
@@ -247,13 +333,19 @@ impl Model {
             dead_fractions,
             empty_targets: empty_targets.0,
             empty_target_lines: empty_targets.1,
+            members: member_summaries,
+            l2: Some(ensemble.l2),
+            penalty_grid: ensemble.grid,
+            calibration_rows: calibration.len(),
         };
+        let (inputs, target) = (first.inputs.clone(), first.target.clone());
         Ok((
             Model {
                 encoder,
-                inputs: trained.inputs,
-                target: trained.target,
-                network: trained.network,
+                inputs,
+                target,
+                members: members.into_iter().map(|t| t.network).collect(),
+                interval,
                 summary,
             },
             report,
@@ -269,9 +361,18 @@ impl Model {
             encoder: self.encoder.clone(),
             input_scaling: self.inputs.clone(),
             target_scaling: self.target.clone(),
-            input_width: self.network.input_width(),
-            layers: self.network.specs(),
-            parameters: self.network.params().iter().map(|&p| p as f64).collect(),
+            input_width: self.members[0].input_width(),
+            layers: Vec::new(),
+            parameters: Vec::new(),
+            members: self
+                .members
+                .iter()
+                .map(|n| MemberFile {
+                    layers: n.specs(),
+                    parameters: n.params().iter().map(|&p| p as f64).collect(),
+                })
+                .collect(),
+            interval: self.interval.clone(),
             summary: self.summary.clone(),
         };
         serde_json::to_string(&file).expect("a model always serializes")
@@ -335,31 +436,63 @@ impl Model {
             }
             None => return Err("no 'version' field".to_string()),
         }
-        let file: ModelFile = serde_json::from_str(text).map_err(|e| {
+        let mut file: ModelFile = serde_json::from_str(text).map_err(|e| {
             format!(
                 "damaged model file: {e} (line {}, column {})",
                 e.line(),
                 e.column()
             )
         })?;
+        if file.members.is_empty() {
+            // Version 1: one network at the top level.
+            file.members.push(MemberFile {
+                layers: std::mem::take(&mut file.layers),
+                parameters: std::mem::take(&mut file.parameters),
+            });
+        }
+        if file.members.len() > MAX_MEMBERS {
+            return Err(format!(
+                "{} ensemble members: at most {MAX_MEMBERS}",
+                file.members.len()
+            ));
+        }
         validate(&file)?;
-        let mut network = Network::<f32>::from_specs(file.input_width, &file.layers)
-            .map_err(|e| format!("invalid layers: {e}"))?;
-        for (p, v) in network.params_mut().iter_mut().zip(&file.parameters) {
-            *p = *v as f32;
+        let mut total = 0usize;
+        for (m, member) in file.members.iter().enumerate() {
+            total = total
+                .checked_add(
+                    validate_network(file.input_width, member)
+                        .map_err(|e| format!("member {m}: {e}"))?,
+                )
+                .filter(|&c| c <= MAX_PARAMS)
+                .ok_or_else(|| format!("more than {MAX_PARAMS} parameters in all"))?;
+        }
+        let mut members = Vec::with_capacity(file.members.len());
+        for member in &file.members {
+            let mut network = Network::<f32>::from_specs(file.input_width, &member.layers)
+                .map_err(|e| format!("invalid layers: {e}"))?;
+            for (p, v) in network.params_mut().iter_mut().zip(&member.parameters) {
+                *p = *v as f32;
+            }
+            members.push(network);
+        }
+        if let Some(interval) = &file.interval {
+            interval.validate()?;
         }
         Ok(Model {
             encoder: file.encoder,
             inputs: file.input_scaling,
             target: file.target_scaling,
-            network,
+            members,
+            interval: file.interval,
             summary: file.summary,
         })
     }
 }
 
-/// Checks sizes (before anything is built), shapes and values of a parsed model file.
-fn validate(file: &ModelFile) -> Result<(), String> {
+/// Checks one network's sizes (before anything is built), shapes and values; returns its
+/// parameter count.
+fn validate_network(input_width: usize, file: &MemberFile) -> Result<usize, String> {
     if file.layers.is_empty() || file.layers.len() > MAX_LAYERS {
         return Err(format!(
             "{} layers: must be 1 to {MAX_LAYERS}",
@@ -373,8 +506,8 @@ fn validate(file: &ModelFile) -> Result<(), String> {
             Ok(())
         }
     };
-    check_width("input width", file.input_width)?;
-    let mut width = file.input_width;
+    check_width("input width", input_width)?;
+    let mut width = input_width;
     let mut count: usize = 0;
     for (i, layer) in file.layers.iter().enumerate() {
         let (takes, gives, params) = match *layer {
@@ -430,6 +563,11 @@ fn validate(file: &ModelFile) -> Result<(), String> {
     if let Some(i) = file.parameters.iter().position(|p| !p.is_finite()) {
         return Err(format!("parameter {i} is not finite"));
     }
+    Ok(count)
+}
+
+/// Checks the encoder, the scaling and their widths against the network's input width.
+fn validate(file: &ModelFile) -> Result<(), String> {
     if file.encoder.width() != file.input_width || file.input_scaling.width() != file.input_width {
         return Err(format!(
             "the encoder gives {} inputs and the scaling covers {}, but the network takes {}",

@@ -4,6 +4,7 @@
 
 use crate::activation::{leaky, Activation};
 use crate::data::{Column, DataError, Encoder, LevelIndex, Table};
+use crate::interval::Conformal;
 use crate::layer::LayerSpec;
 use crate::model::{Model, ModelError};
 use crate::scale::Standardizer;
@@ -28,8 +29,12 @@ pub struct RowError {
 /// The result of one row.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct RowPrediction {
-    /// The prediction, in the target's own units.
+    /// The prediction (the members' average), in the target's own units.
     pub value: f64,
+    /// Lower end of the prediction interval, if the model has one.
+    pub lower: Option<f64>,
+    /// Upper end of the prediction interval.
+    pub upper: Option<f64>,
     /// Some numeric feature is outside its training range by more than the margin; which ones
     /// are in the scratch ([`Scratch::out_of_range`]).
     pub extrapolated: bool,
@@ -44,6 +49,7 @@ pub struct RowPrediction {
 pub struct Scratch {
     a: Vec<f32>,
     b: Vec<f32>,
+    input: Vec<f32>,
     raw: Vec<f64>,
     out_of_range: Vec<bool>,
     unseen: Vec<bool>,
@@ -80,7 +86,8 @@ pub struct Predictor {
     encoder: Encoder,
     inputs: Standardizer,
     target: Standardizer,
-    steps: Vec<Step>,
+    members: Vec<Vec<Step>>,
+    interval: Option<Conformal>,
     max_width: usize,
     index: LevelIndex,
     margin: f64,
@@ -89,62 +96,41 @@ pub struct Predictor {
 impl Predictor {
     /// A predictor for `model`, with the default extrapolation margin.
     pub fn new(model: &Model) -> Predictor {
-        let net = &model.network;
-        let params = net.params();
-        let mut steps = Vec::new();
-        let mut offset = 0;
-        for spec in net.specs() {
-            match spec {
-                LayerSpec::Affine {
-                    inputs, outputs, ..
-                } => {
-                    let w = inputs * outputs;
-                    steps.push(Step::Affine {
-                        inputs,
-                        outputs,
-                        weights: params[offset..offset + w].to_vec(),
-                        bias: params[offset + w..offset + w + outputs].to_vec(),
-                    });
-                    offset += w + outputs;
-                }
-                LayerSpec::Activation {
-                    width,
-                    activation: Activation::Prelu { shared, .. },
-                } => {
-                    let n = if shared { 1 } else { width };
-                    let slopes = &params[offset..offset + n];
-                    steps.push(Step::Prelu(if shared {
-                        vec![slopes[0]; width]
-                    } else {
-                        slopes.to_vec()
-                    }));
-                    offset += n;
-                }
-                LayerSpec::Activation { activation, .. } => steps.push(Step::Act(activation)),
-                LayerSpec::Dropout { .. } => {}
-            }
-        }
-        let max_width = net
-            .specs()
+        let members: Vec<Vec<Step>> = model.members.iter().map(steps_of).collect();
+        let max_width = model
+            .members
             .iter()
-            .map(|s| match *s {
-                LayerSpec::Affine {
-                    inputs, outputs, ..
-                } => inputs.max(outputs),
-                LayerSpec::Activation { width, .. } | LayerSpec::Dropout { width, .. } => width,
+            .flat_map(|net| {
+                net.specs().into_iter().map(|s| match s {
+                    LayerSpec::Affine {
+                        inputs, outputs, ..
+                    } => inputs.max(outputs),
+                    LayerSpec::Activation { width, .. } | LayerSpec::Dropout { width, .. } => width,
+                })
             })
             .max()
             .unwrap_or(1)
-            .max(net.input_width());
+            .max(model.encoder.width());
         Predictor {
             encoder: model.encoder.clone(),
             inputs: model.inputs.clone(),
             target: model.target.clone(),
-            steps,
+            members,
+            interval: model.interval.clone(),
             max_width,
             index: LevelIndex::new(&model.encoder),
             margin: DEFAULT_MARGIN,
         }
+    }
+
+    /// Ensemble members whose predictions are averaged.
+    pub fn member_count(&self) -> usize {
+        self.members.len()
+    }
+
+    /// The calibrated interval, if the model has one.
+    pub fn interval(&self) -> Option<&Conformal> {
+        self.interval.as_ref()
     }
 
     /// Loads a model file and freezes it.
@@ -174,6 +160,7 @@ impl Predictor {
         Scratch {
             a: vec![0.0; self.max_width],
             b: vec![0.0; self.max_width],
+            input: vec![0.0; self.max_width],
             raw: vec![0.0; features.iter().map(|f| f.width()).max().unwrap_or(0)],
             out_of_range: vec![false; features.len()],
             unseen: vec![false; features.len()],
@@ -223,6 +210,7 @@ impl Predictor {
         let Scratch {
             a,
             b,
+            input,
             raw,
             out_of_range,
             unseen,
@@ -255,41 +243,31 @@ impl Predictor {
             }
             k += w;
         }
-        let out = crate::kernels::with_simd(|| self.run_steps(a, b, k));
-        let scaled = out as f64 * self.target.sd[0] + self.target.mean[0];
+        input[..k].copy_from_slice(&a[..k]);
+        let mut sum = 0.0_f64;
+        for steps in &self.members {
+            a[..k].copy_from_slice(&input[..k]);
+            sum += f64::from(crate::kernels::with_simd(|| run_steps(steps, a, b, k)));
+        }
+        let out = sum / self.members.len() as f64;
+        let scaled = out * self.target.sd[0] + self.target.mean[0];
+        let (lower, upper) = match &self.interval {
+            Some(c) => {
+                let (lo, hi) = c.around(scaled);
+                (
+                    Some(self.encoder.decode_target(lo)),
+                    Some(self.encoder.decode_target(hi)),
+                )
+            }
+            None => (None, None),
+        };
         Ok(RowPrediction {
             value: self.encoder.decode_target(scaled),
+            lower,
+            upper,
             extrapolated,
             unseen: any_unseen,
         })
-    }
-
-    /// The layers on one encoded row of `width` values in `a` (`b` is the second buffer);
-    /// returns the scaled output.
-    #[inline(always)]
-    fn run_steps(&self, a: &mut [f32], b: &mut [f32], mut width: usize) -> f32 {
-        let (mut cur, mut next) = (a, b);
-        for step in &self.steps {
-            match step {
-                Step::Affine {
-                    inputs,
-                    outputs,
-                    weights,
-                    bias,
-                } => {
-                    affine_row(&cur[..*inputs], weights, bias, &mut next[..*outputs]);
-                    width = *outputs;
-                }
-                Step::Act(act) => act.apply(&cur[..width], &mut next[..width]),
-                Step::Prelu(slopes) => next[..width]
-                    .iter_mut()
-                    .zip(&cur[..width])
-                    .zip(slopes)
-                    .for_each(|((o, &v), &s)| *o = leaky(v, s)),
-            }
-            std::mem::swap(&mut cur, &mut next);
-        }
-        cur[0]
     }
 
     /// Predicts every row of a table (columns found by name; extra columns ignored). Each row
@@ -311,6 +289,8 @@ impl Predictor {
                 Ok(p) => TableRow {
                     line: table.lines[r],
                     value: Some(p.value),
+                    lower: p.lower,
+                    upper: p.upper,
                     out_of_range: self
                         .encoder
                         .features
@@ -332,6 +312,8 @@ impl Predictor {
                 Err(e) => TableRow {
                     line: table.lines[r],
                     value: None,
+                    lower: None,
+                    upper: None,
                     out_of_range: Vec::new(),
                     unseen: Vec::new(),
                     error: Some(self.explain(&e)),
@@ -342,6 +324,73 @@ impl Predictor {
     }
 }
 
+/// The inference steps of one network.
+fn steps_of(net: &crate::network::Network<f32>) -> Vec<Step> {
+    let params = net.params();
+    let mut steps = Vec::new();
+    let mut offset = 0;
+    for spec in net.specs() {
+        match spec {
+            LayerSpec::Affine {
+                inputs, outputs, ..
+            } => {
+                let w = inputs * outputs;
+                steps.push(Step::Affine {
+                    inputs,
+                    outputs,
+                    weights: params[offset..offset + w].to_vec(),
+                    bias: params[offset + w..offset + w + outputs].to_vec(),
+                });
+                offset += w + outputs;
+            }
+            LayerSpec::Activation {
+                width,
+                activation: Activation::Prelu { shared, .. },
+            } => {
+                let n = if shared { 1 } else { width };
+                let slopes = &params[offset..offset + n];
+                steps.push(Step::Prelu(if shared {
+                    vec![slopes[0]; width]
+                } else {
+                    slopes.to_vec()
+                }));
+                offset += n;
+            }
+            LayerSpec::Activation { activation, .. } => steps.push(Step::Act(activation)),
+            LayerSpec::Dropout { .. } => {}
+        }
+    }
+    steps
+}
+
+/// One network's layers on one encoded row of `width` values in `a` (`b` is the second
+/// buffer); returns the scaled output.
+#[inline(always)]
+fn run_steps(steps: &[Step], a: &mut [f32], b: &mut [f32], mut width: usize) -> f32 {
+    let (mut cur, mut next) = (a, b);
+    for step in steps {
+        match step {
+            Step::Affine {
+                inputs,
+                outputs,
+                weights,
+                bias,
+            } => {
+                affine_row(&cur[..*inputs], weights, bias, &mut next[..*outputs]);
+                width = *outputs;
+            }
+            Step::Act(act) => act.apply(&cur[..width], &mut next[..width]),
+            Step::Prelu(slopes) => next[..width]
+                .iter_mut()
+                .zip(&cur[..width])
+                .zip(slopes)
+                .for_each(|((o, &v), &s)| *o = leaky(v, s)),
+        }
+        std::mem::swap(&mut cur, &mut next);
+    }
+    cur[0]
+}
+
 /// The prediction for one table row.
 #[derive(Clone, Debug, PartialEq)]
 pub struct TableRow {
@@ -349,6 +398,10 @@ pub struct TableRow {
     pub line: u64,
     /// The prediction, if the row could be encoded.
     pub value: Option<f64>,
+    /// The prediction interval, if the model has one.
+    pub lower: Option<f64>,
+    /// Upper end of the interval.
+    pub upper: Option<f64>,
     /// Features outside their training range by more than the margin.
     pub out_of_range: Vec<String>,
     /// Features with a category never seen in training (predicted through the pooled level).

@@ -70,6 +70,29 @@ pub struct Recipe {
     pub keep_tiny_validation: bool,
     /// Seed of the initialization (the split and shuffling use `train.seed`).
     pub seed: u64,
+    /// Ensemble members a model trained from a table gets ([`crate::Model::fit`]; `fit` on
+    /// arrays trains one network).
+    #[serde(default = "default_members")]
+    pub members: usize,
+    /// Choose the L2 strength on the data ([`crate::ensemble::PENALTY_GRID`]) when training
+    /// a model from a table.
+    #[serde(default = "default_true")]
+    pub choose_penalty: bool,
+    /// Nominal coverage of the prediction interval.
+    #[serde(default = "default_coverage")]
+    pub coverage: f64,
+}
+
+fn default_members() -> usize {
+    crate::ensemble::DEFAULT_MEMBERS
+}
+
+fn default_true() -> bool {
+    true
+}
+
+fn default_coverage() -> f64 {
+    crate::interval::DEFAULT_COVERAGE
 }
 
 impl Default for Recipe {
@@ -99,6 +122,9 @@ impl Default for Recipe {
             }),
             keep_tiny_validation: false,
             seed: 0,
+            members: default_members(),
+            choose_penalty: true,
+            coverage: default_coverage(),
         }
     }
 }
@@ -130,6 +156,12 @@ pub struct Overrides {
     pub patience: Option<usize>,
     /// Seed of initialization, split and shuffling.
     pub seed: Option<u64>,
+    /// Ensemble members.
+    #[serde(default)]
+    pub members: Option<usize>,
+    /// Nominal coverage of the prediction interval.
+    #[serde(default)]
+    pub coverage: Option<f64>,
 }
 
 impl Overrides {
@@ -158,6 +190,16 @@ impl Overrides {
         }
         if self.val_frac.is_some() {
             recipe.keep_tiny_validation = true;
+        }
+        if let Some(m) = self.members {
+            recipe.members = m.max(1);
+        }
+        if let Some(c) = self.coverage {
+            recipe.coverage = c;
+        }
+        if self.l1.is_some() || self.l2.is_some() {
+            // A penalty given by hand is used as given.
+            recipe.choose_penalty = false;
         }
         let mut configs: Vec<&mut TrainConfig> = vec![&mut recipe.train];
         if let Some(small) = recipe.small_tables.as_mut() {

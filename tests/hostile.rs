@@ -166,9 +166,9 @@ fn a_crash_in_the_middle_of_saving_never_damages_the_saved_file() {
         child.kill().unwrap(); // SIGKILL on Unix: no destructor or flush runs.
         child.wait().unwrap();
         let model = Model::load(&path).unwrap_or_else(|e| panic!("attempt {attempt}: {e}"));
-        assert!(model.network.params().iter().all(|p| p.is_finite()));
+        assert!(model.members[0].params().iter().all(|p| p.is_finite()));
         loaded += 1;
-        replaced += usize::from(model.network.param_count() > 10_000);
+        replaced += usize::from(model.members[0].param_count() > 10_000);
     }
     // A kill in the middle of a save leaves that save's temporary file behind.
     let interrupted = std::fs::read_dir(&dir)

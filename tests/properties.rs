@@ -115,11 +115,11 @@ proptest! {
             .with_config(TrainConfig { epochs: 2, ..TrainConfig::default() });
         let (model, _) = Model::fit(&table, &spec, &recipe, Default::default()).unwrap();
         let back = Model::from_json(&model.to_json()).unwrap();
-        prop_assert_eq!(back.network.params(), model.network.params());
-        prop_assert_eq!(back.network.specs(), model.network.specs());
+        prop_assert_eq!(back.members[0].params(), model.members[0].params());
+        prop_assert_eq!(back.members[0].specs(), model.members[0].specs());
         prop_assert_eq!(&back.encoder, &model.encoder);
         let x = Array2::from_shape_fn((7, 2), |(i, j)| (i + j) as f32 * 0.3);
-        let (mut a, mut b) = (model.network.clone(), back.network.clone());
+        let (mut a, mut b) = (model.members[0].clone(), back.members[0].clone());
         prop_assert_eq!(a.predict(x.view()).unwrap(), b.predict(x.view()).unwrap());
     }
 }

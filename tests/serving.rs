@@ -247,7 +247,7 @@ fn the_row_predictor_agrees_with_the_training_forward_pass() {
     let table = read(&small_csv(40)).unwrap();
     let mut x = model.encoder.encode_inputs::<f32>(&table, None).unwrap();
     model.inputs.apply_in_place(&mut x);
-    let mut network = model.network.clone();
+    let mut network = model.members[0].clone();
     let scaled = network
         .forward(x.view(), relume::layer::Pass::Infer)
         .unwrap()

@@ -8,9 +8,7 @@ use relume::data::{list_some, DataError, EncoderSpec, Impute, ReadOptions, Table
 use relume::metrics::Metrics;
 use relume::model::{FitError, ModelError};
 use relume::monitor::MonitorConfig;
-use relume::network::Network;
 use relume::report::{plot_run, PlotOptions};
-use relume::train::{EpochRecord, Flow, Observer};
 use relume::{Activation, Init, LayerSpec, Model, OptimizerChoice, Overrides, Predictor};
 use std::io::{IsTerminal, Write};
 use std::path::{Path, PathBuf};
@@ -243,6 +241,13 @@ struct TrainArgs {
     /// Seed of initialization, split and shuffling (default 0).
     #[arg(long, value_name = "N")]
     seed: Option<u64>,
+    /// Ensemble members: networks trained with different seeds whose predictions are averaged
+    /// (default 5; 1 gives a single network).
+    #[arg(long, value_name = "K", value_parser = clap::value_parser!(usize))]
+    members: Option<usize>,
+    /// Nominal coverage of the split-conformal prediction interval (default 0.9).
+    #[arg(long, value_name = "0.9", allow_negative_numbers = true)]
+    coverage: Option<f64>,
     /// Where to write the model file.
     #[arg(long, value_name = "MODEL")]
     out: PathBuf,
@@ -392,35 +397,19 @@ fn read_table(args: &TableArgs, model_text: &[String]) -> Result<Table, Failure>
     })
 }
 
-/// Epoch progress on a terminal; nothing when standard error is not one.
-struct Progress {
-    bar: ProgressBar,
-}
-
-impl Progress {
-    fn new(epochs: usize) -> Progress {
-        let bar = ProgressBar::new(epochs as u64);
-        if std::io::stderr().is_terminal() {
-            bar.set_style(
-                ProgressStyle::with_template("{bar:30} epoch {pos}/{len}  {msg}  eta {eta}")
-                    .expect("valid template"),
-            );
-        } else {
-            bar.set_draw_target(ProgressDrawTarget::hidden());
-        }
-        Progress { bar }
+/// Progress over the ensemble's training runs on a terminal; nothing when standard error is
+/// not one.
+fn run_progress() -> ProgressBar {
+    let bar = ProgressBar::new(1);
+    if std::io::stderr().is_terminal() {
+        bar.set_style(
+            ProgressStyle::with_template("{bar:30} training run {pos}/{len}  {elapsed}  eta {eta}")
+                .expect("valid template"),
+        );
+    } else {
+        bar.set_draw_target(ProgressDrawTarget::hidden());
     }
-}
-
-impl Observer<f32> for Progress {
-    fn after_epoch(&mut self, record: &EpochRecord, _: &mut Network<f32>) -> Flow {
-        self.bar.set_position(record.epoch as u64 + 1);
-        self.bar.set_message(match record.val_loss {
-            Some(v) => format!("train {:.4}  validation {v:.4}", record.train_loss),
-            None => format!("train {:.4}", record.train_loss),
-        });
-        Flow::Continue
-    }
+    bar
 }
 
 fn train(a: TrainArgs) -> Result<(), Failure> {
@@ -442,8 +431,16 @@ fn train(a: TrainArgs) -> Result<(), Failure> {
         val_frac: a.val_frac,
         patience: a.patience,
         seed: a.seed,
+        members: a.members,
+        coverage: a.coverage,
     }
     .recipe();
+    if !(recipe.coverage > 0.0 && recipe.coverage < 1.0) {
+        return Err(Failure::User(format!(
+            "--coverage {} must be between 0 and 1 (for example 0.9)",
+            recipe.coverage
+        )));
+    }
     // Data summary.
     let target = table.column(&a.columns.target)?;
     let values: Vec<f64> = match &target.data {
@@ -502,22 +499,26 @@ fn train(a: TrainArgs) -> Result<(), Failure> {
         prepared.encoder.width(),
         list_some(prepared.encoder.input_names(), 12)
     );
-    let mut progress = Progress::new(config.epochs);
+    let bar = run_progress();
     let (model, mut report) = Model::fit_prepared(
         prepared,
         &recipe,
         MonitorConfig::default(),
-        &mut [&mut progress],
+        &|done, total| {
+            bar.set_length(total as u64);
+            bar.set_position(done as u64);
+        },
     )?;
-    progress.bar.finish_and_clear();
+    bar.finish_and_clear();
     let s = &model.summary;
     eprintln!(
         "trained {} epochs on {} rows (best epoch {}, stopped: {:?})",
         s.epochs_run, s.train_rows, s.best_epoch, s.stop
     );
+    print_ensemble(s, model.interval.as_ref(), |line| eprintln!("{line}"));
     if let Some(v) = &s.validation {
         eprintln!(
-            "validation ({} rows): RMSE {:.4}  MAE {:.4}  R² {:.4}",
+            "validation ({} rows held out of all fitting, ensemble): RMSE {:.4}  MAE {:.4}  R² {:.4}",
             v.rows, v.rmse, v.mae, v.r2
         );
         report.final_metrics.extra = vec![
@@ -571,6 +572,62 @@ fn train(a: TrainArgs) -> Result<(), Failure> {
     }
     eprintln!("\n{CAUTIONS}");
     Ok(())
+}
+
+/// The ensemble's members, the penalty choice and the interval, one line each.
+fn print_ensemble(
+    s: &relume::model::ModelSummary,
+    interval: Option<&relume::interval::Conformal>,
+    say: impl Fn(String),
+) {
+    if !s.penalty_grid.is_empty() {
+        let tried: Vec<String> = s
+            .penalty_grid
+            .iter()
+            .map(|(l2, loss)| match loss {
+                Some(v) => format!("{l2:e}: {v:.4}"),
+                None => format!("{l2:e}: failed"),
+            })
+            .collect();
+        say(format!(
+            "L2 penalty chosen on the early-stopping rows: {:e} (best validation loss per \
+             strength: {})",
+            s.l2.unwrap_or(0.0),
+            tried.join(", ")
+        ));
+    } else if let Some(l2) = s.l2 {
+        say(format!("L2 penalty: {l2:e} (as set)"));
+    }
+    for (m, member) in s.members.iter().enumerate() {
+        say(format!(
+            "member {} (seed {}): {} epochs, best epoch {}{}",
+            m + 1,
+            member.seed,
+            member.epochs_run,
+            member.best_epoch,
+            member
+                .rmse
+                .map_or(String::new(), |r| format!(", calibration RMSE {r:.4}"))
+        ));
+    }
+    match interval {
+        Some(c) => say(format!(
+            "prediction interval: {:.0}% split-conformal, ±{:.4} on the {} scale, from {} \
+             calibration rows",
+            100.0 * c.coverage,
+            c.half_width,
+            "model's target",
+            c.calibration_rows
+        )),
+        None if s.calibration_rows > 0 => say(format!(
+            "no prediction interval: {} calibration rows are too few for the coverage",
+            s.calibration_rows
+        )),
+        None => say(
+            "no prediction interval: the table is too small to hold out calibration rows"
+                .to_string(),
+        ),
+    }
 }
 
 /// One line per column: what it became and why.
@@ -679,7 +736,10 @@ fn predict(a: PredictArgs) -> Result<(), Failure> {
         a.key.clone()
     };
     let header: Vec<String> = keys.iter().map(|k| csv_field(k)).collect();
-    text += &format!("{},prediction,extrapolated,issue\n", header.join(","));
+    text += &format!(
+        "{},prediction,lower,upper,extrapolated,issue\n",
+        header.join(",")
+    );
     let (mut failed, mut flagged, mut unseen) = (0, 0, 0);
     for (r, row) in rows.iter().enumerate() {
         let key_values: Vec<String> = if a.key.is_empty() {
@@ -715,10 +775,13 @@ fn predict(a: PredictArgs) -> Result<(), Failure> {
                 parts.join("; ")
             }
         };
+        let number = |v: Option<f64>| v.map_or(String::new(), |v| v.to_string());
         text += &format!(
-            "{},{},{},{}\n",
+            "{},{},{},{},{},{}\n",
             key_values.join(","),
-            row.value.map_or(String::new(), |v| v.to_string()),
+            number(row.value),
+            number(row.lower),
+            number(row.upper),
             !row.out_of_range.is_empty(),
             csv_field(&issue)
         );
@@ -769,16 +832,25 @@ fn evaluate(a: EvaluateArgs) -> Result<(), Failure> {
     let rows = predictor.predict_table(&table)?;
     let (mut predictions, mut targets) = (Vec::new(), Vec::new());
     let (mut failed, mut flagged) = (0, 0);
+    let (mut inside, mut width, mut with_interval) = (0usize, 0.0, 0usize);
     for (r, row) in rows.iter().enumerate() {
         match row.value {
             Some(v) if !truth[r].is_nan() => {
                 predictions.push(v);
                 targets.push(truth[r]);
                 flagged += usize::from(!row.out_of_range.is_empty());
+                if let (Some(lo), Some(hi)) = (row.lower, row.upper) {
+                    with_interval += 1;
+                    inside += usize::from(lo <= truth[r] && truth[r] <= hi);
+                    width += hi - lo;
+                }
             }
             _ => failed += 1,
         }
     }
+    let nominal = predictor.interval().map(|c| c.coverage);
+    let coverage = (with_interval > 0).then(|| inside as f64 / with_interval as f64);
+    let mean_width = (with_interval > 0).then(|| width / with_interval as f64);
     if predictions.is_empty() {
         return Err(Failure::User(format!(
             "{}: no row could be evaluated (empty targets or unusable rows)",
@@ -802,6 +874,14 @@ fn evaluate(a: EvaluateArgs) -> Result<(), Failure> {
         "residual  5% {:.4}  25% {:.4}  median {:.4}  75% {:.4}  95% {:.4}",
         q[0], q[1], q[2], q[3], q[4]
     );
+    match (coverage, nominal, mean_width) {
+        (Some(c), Some(n), Some(w)) => println!(
+            "interval  {:.1}% of rows inside (nominal {:.0}%), mean width {w:.4}",
+            100.0 * c,
+            100.0 * n
+        ),
+        _ => println!("interval  none (the model has no prediction interval)"),
+    }
     println!("flagged   {flagged} rows outside the training range; {failed} rows not evaluated");
     if let Some(path) = &a.report {
         let json = serde_json::json!({
@@ -809,6 +889,9 @@ fn evaluate(a: EvaluateArgs) -> Result<(), Failure> {
             "rmse": m.rmse,
             "mae": m.mae,
             "r2": m.r2,
+            "coverage": coverage,
+            "nominal_coverage": nominal,
+            "mean_interval_width": mean_width,
             "mape": m.mape,
             "residual_quantiles": m.residual_quantiles,
             "extrapolated_rows": flagged,
@@ -826,10 +909,14 @@ fn evaluate(a: EvaluateArgs) -> Result<(), Failure> {
 
 fn inspect(a: InspectArgs) -> Result<(), Failure> {
     let model = Model::load(&a.model)?;
-    let net = &model.network;
+    let net = &model.members[0];
     println!("model file {}", a.model.display());
-    println!("parameters {}", net.param_count());
-    println!("layers:");
+    println!(
+        "parameters {} per network, {} networks in the ensemble",
+        net.param_count(),
+        model.members.len()
+    );
+    println!("layers (each network):");
     for (i, spec) in net.specs().iter().enumerate() {
         match spec {
             LayerSpec::Affine {
@@ -874,10 +961,11 @@ fn inspect(a: InspectArgs) -> Result<(), Failure> {
     );
     if let Some(v) = &s.validation {
         println!(
-            "validation: RMSE {:.4}, MAE {:.4}, R² {:.4}",
-            v.rmse, v.mae, v.r2
+            "validation ({} calibration rows, ensemble): RMSE {:.4}, MAE {:.4}, R² {:.4}",
+            v.rows, v.rmse, v.mae, v.r2
         );
     }
+    print_ensemble(s, model.interval.as_ref(), |line| println!("{line}"));
     for (k, dead) in s.dead_fractions.iter().enumerate() {
         println!(
             "hidden layer {}: {:.1}% dead units at the end of training",
