@@ -49,6 +49,7 @@ pub mod report;
 pub mod scalar;
 pub mod scale;
 pub mod schedule;
+pub mod shard;
 pub mod stats;
 pub mod train;
 
