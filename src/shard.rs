@@ -158,10 +158,10 @@ fn slurm(id: &str, get: &impl Fn(&str) -> Option<String>) -> Result<Shard, Strin
         index,
         count,
         source: format!(
-            "Slurm array task {id} of ids {lo}..={}{}",
+            "Slurm array task {id} of --array={lo}-{}{}",
             lo + (count - 1) * step,
             if step > 1 {
-                format!(" step {step}")
+                format!(":{step}")
             } else {
                 String::new()
             }

@@ -99,7 +99,9 @@ fn slurm_array_forms() {
         Ok((1, 2))
     );
     let s = from_environment(env(&range)).unwrap();
-    assert!(s.source.contains("Slurm array task 4"), "{}", s.source);
+    assert_eq!(s.source, "Slurm array task 4 of --array=1-4");
+    let s = from_environment(env(&stepped)).unwrap();
+    assert_eq!(s.source, "Slurm array task 8 of --array=0-12:4");
 }
 
 #[test]
