@@ -202,6 +202,9 @@ pub struct SweepReport {
     pub shard: Option<(usize, usize)>,
     /// Results in cell order.
     pub runs: Vec<RunResult>,
+    /// What the runs trained on: see [`data_digest`] (None in reports from before it existed).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub data: Option<String>,
     /// The command that ran this report (None in a merged report), for rerunning missing shards.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub invocation: Option<Invocation>,
@@ -266,8 +269,63 @@ pub fn run(
         plan: plan.clone(),
         shard,
         runs,
+        data: Some(data_digest(table, spec)),
         invocation: None,
     })
+}
+
+/// The table's size and a 64-bit FNV-1a digest of its column names and cells, with the
+/// columns modelled, so that `merge` can refuse shards that ran on other data.
+pub fn data_digest(table: &Table, spec: &EncoderSpec) -> String {
+    let mut h = Fnv1a::default();
+    for c in &table.columns {
+        h.eat(c.name.as_bytes());
+        match &c.data {
+            ColumnData::Number(v) => v.iter().for_each(|x| h.eat(&x.to_bits().to_le_bytes())),
+            ColumnData::Text(v) => v.iter().for_each(|x| match x {
+                Some(t) => h.eat(t.as_bytes()),
+                None => h.eat(&[0xff]),
+            }),
+        }
+    }
+    let features = spec
+        .features
+        .as_ref()
+        .map_or("all but the target".to_string(), |f| f.join(","));
+    format!(
+        "{} rows × {} columns, FNV-1a {:016x}; target {}, features {features}, impute {:?}, \
+         log target {}",
+        table.rows(),
+        table.columns.len(),
+        h.0,
+        spec.target,
+        spec.impute,
+        spec.log_target
+    )
+}
+
+/// 64-bit FNV-1a, each piece followed by its length so that pieces cannot run together.
+/// Offset basis and prime from the FNV reference (Fowler, Noll, Vo; IETF draft
+/// draft-eastlake-fnv), from memory; checked on its test vectors in the unit test below.
+struct Fnv1a(u64);
+
+impl Default for Fnv1a {
+    fn default() -> Self {
+        Fnv1a(0xcbf2_9ce4_8422_2325)
+    }
+}
+
+impl Fnv1a {
+    fn bytes(&mut self, bytes: &[u8]) {
+        for &b in bytes {
+            self.0 = (self.0 ^ u64::from(b)).wrapping_mul(0x0000_0100_0000_01b3);
+        }
+    }
+
+    fn eat(&mut self, piece: &[u8]) {
+        self.bytes(piece);
+        self.bytes(&(piece.len() as u64).to_le_bytes());
+    }
 }
 
 fn run_cell(
@@ -470,6 +528,14 @@ pub fn merge(reports: &[SweepReport]) -> Result<SweepReport, MergeError> {
                  the candidates, seeds, folds or settings differ",
                 k + 1
             ));
+        }
+        if let (Some(a), Some(b)) = (&first.data, &r.data) {
+            if a != b {
+                return refuse(format!(
+                    "report {} ran on other data than report 1 ({b}, not {a})",
+                    k + 1
+                ));
+            }
         }
         if let Some((i, n)) = r.shard {
             if n == 0 || i >= n {
@@ -789,4 +855,24 @@ pub fn markdown(c: &Comparison) -> String {
         );
     }
     s
+}
+
+#[cfg(test)]
+mod tests {
+    use super::Fnv1a;
+
+    /// Test vectors of 64-bit FNV-1a from the FNV reference's test suite (from memory):
+    /// "" → cbf29ce484222325, "a" → af63dc4c8601ec8c, "foobar" → 85944171f73967e8.
+    #[test]
+    fn fnv1a_matches_the_reference_vectors() {
+        for (text, digest) in [
+            ("", 0xcbf2_9ce4_8422_2325_u64),
+            ("a", 0xaf63_dc4c_8601_ec8c),
+            ("foobar", 0x8594_4171_f739_67e8),
+        ] {
+            let mut h = Fnv1a::default();
+            h.bytes(text.as_bytes());
+            assert_eq!(h.0, digest, "{text:?}");
+        }
+    }
 }

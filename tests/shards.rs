@@ -418,6 +418,21 @@ fn reruns_are_equal_duplicates_merge_exactly_or_are_refused() {
         reason.contains("report 1") && reason.contains("report 2"),
         "{reason}"
     );
+    // The same plan on other data, or on other columns, is refused.
+    let mut changed = t.clone();
+    if let relume::data::ColumnData::Number(v) = &mut changed.columns[0].data {
+        v[7] += 1e-9;
+    }
+    let elsewhere = run(&changed, &spec(), &p, Some((2, 3))).unwrap();
+    let e = merge(&[parts[0].clone(), parts[1].clone(), elsewhere]).unwrap_err();
+    assert!(e.to_string().contains("report 3 ran on other data"), "{e}");
+    let other_target = EncoderSpec {
+        target: "a".into(),
+        ..EncoderSpec::default()
+    };
+    let other = run(&t, &other_target, &p, Some((2, 3))).unwrap();
+    let e = merge(&[parts[0].clone(), parts[1].clone(), other]).unwrap_err();
+    assert!(e.to_string().contains("target a"), "{e}");
     // Another plan is refused.
     let mut other = parts[2].clone();
     other.plan.seeds = 3;
