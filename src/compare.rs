@@ -413,10 +413,11 @@ impl SweepPlan {
 
     /// "relu, seed 2, fold 1".
     pub fn cell_label(&self, cell: Cell) -> String {
-        format!(
-            "{}, seed {}, fold {}",
-            self.candidates[cell.candidate].label, cell.seed, cell.fold
-        )
+        let name = self.candidates.get(cell.candidate).map_or_else(
+            || format!("candidate {}", cell.candidate),
+            |c| c.label.clone(),
+        );
+        format!("{name}, seed {}, fold {}", cell.seed, cell.fold)
     }
 }
 
