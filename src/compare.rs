@@ -14,6 +14,7 @@ use crate::model::{FitError, Model};
 use crate::monitor::MonitorConfig;
 use crate::predict::Predictor;
 use crate::recipe::Overrides;
+use crate::shard::Invocation;
 use crate::stats::{mean_sd_ci95, wilcoxon};
 use crate::train::TrainError;
 use rayon::prelude::*;
@@ -201,6 +202,12 @@ pub struct SweepReport {
     pub shard: Option<(usize, usize)>,
     /// Results in cell order.
     pub runs: Vec<RunResult>,
+    /// What the runs trained on: see [`data_digest`] (None in reports from before it existed).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub data: Option<String>,
+    /// The command that ran this report (None in a merged report), for rerunning missing shards.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub invocation: Option<Invocation>,
 }
 
 impl SweepReport {
@@ -262,7 +269,63 @@ pub fn run(
         plan: plan.clone(),
         shard,
         runs,
+        data: Some(data_digest(table, spec)),
+        invocation: None,
     })
+}
+
+/// The table's size and a 64-bit FNV-1a digest of its column names and cells, with the
+/// columns modelled, so that `merge` can refuse shards that ran on other data.
+pub fn data_digest(table: &Table, spec: &EncoderSpec) -> String {
+    let mut h = Fnv1a::default();
+    for c in &table.columns {
+        h.eat(c.name.as_bytes());
+        match &c.data {
+            ColumnData::Number(v) => v.iter().for_each(|x| h.eat(&x.to_bits().to_le_bytes())),
+            ColumnData::Text(v) => v.iter().for_each(|x| match x {
+                Some(t) => h.eat(t.as_bytes()),
+                None => h.eat(&[0xff]),
+            }),
+        }
+    }
+    let features = spec
+        .features
+        .as_ref()
+        .map_or("all but the target".to_string(), |f| f.join(","));
+    format!(
+        "{} rows × {} columns, FNV-1a {:016x}; target {}, features {features}, impute {:?}, \
+         log target {}",
+        table.rows(),
+        table.columns.len(),
+        h.0,
+        spec.target,
+        spec.impute,
+        spec.log_target
+    )
+}
+
+/// 64-bit FNV-1a, each piece followed by its length so that pieces cannot run together.
+/// Offset basis and prime from the FNV reference (Fowler, Noll, Vo; IETF draft
+/// draft-eastlake-fnv), from memory; checked on its test vectors in the unit test below.
+struct Fnv1a(u64);
+
+impl Default for Fnv1a {
+    fn default() -> Self {
+        Fnv1a(0xcbf2_9ce4_8422_2325)
+    }
+}
+
+impl Fnv1a {
+    fn bytes(&mut self, bytes: &[u8]) {
+        for &b in bytes {
+            self.0 = (self.0 ^ u64::from(b)).wrapping_mul(0x0000_0100_0000_01b3);
+        }
+    }
+
+    fn eat(&mut self, piece: &[u8]) {
+        self.bytes(piece);
+        self.bytes(&(piece.len() as u64).to_le_bytes());
+    }
 }
 
 fn run_cell(
@@ -340,50 +403,245 @@ fn run_cell(
     })
 }
 
-/// Combines shard reports of one plan into the full report.
-pub fn merge(reports: &[SweepReport]) -> Result<SweepReport, String> {
-    let first = reports.first().ok_or("no reports to merge")?;
-    let Some((_, n)) = first.shard else {
-        return Err("the first report is not a shard".to_string());
-    };
-    let mut seen = vec![false; n];
-    for r in reports {
-        if r.plan != first.plan {
-            return Err("the reports come from different plans".to_string());
-        }
-        match r.shard {
-            Some((i, m)) if m == n && i < n && !seen[i] => seen[i] = true,
-            Some((i, m)) => {
-                return Err(format!(
-                    "shard {i}/{m} is repeated or does not fit {n} shards"
-                ))
-            }
-            None => return Err("a report is not a shard".to_string()),
-        }
+impl SweepPlan {
+    /// Position of a cell in [`SweepPlan::cells`], or None if the plan has no such cell.
+    pub fn cell_index(&self, candidate: usize, seed: u64, fold: usize) -> Option<usize> {
+        let seed = usize::try_from(seed).ok()?;
+        (candidate < self.candidates.len() && seed < self.seeds && fold < self.fold_count())
+            .then(|| (candidate * self.seeds + seed) * self.fold_count() + fold)
     }
-    if let Some(i) = seen.iter().position(|s| !s) {
-        return Err(format!("shard {i}/{n} is missing"));
+
+    /// "relu, seed 2, fold 1".
+    pub fn cell_label(&self, cell: Cell) -> String {
+        let name = self.candidates.get(cell.candidate).map_or_else(
+            || format!("candidate {}", cell.candidate),
+            |c| c.label.clone(),
+        );
+        format!("{name}, seed {}, fold {}", cell.seed, cell.fold)
     }
-    let cells = first.plan.cells();
-    let mut runs: Vec<RunResult> = reports
-        .iter()
-        .flat_map(|r| r.runs.iter().cloned())
-        .collect();
-    let index = |r: &RunResult| {
-        cells
+}
+
+/// Whether two runs of one cell agree exactly in everything but the wall time.
+fn same_outcome(a: &RunResult, b: &RunResult) -> bool {
+    let bits = |v: Option<f64>| v.map(f64::to_bits);
+    (a.candidate, a.seed, a.fold, a.best_epoch, a.epochs)
+        == (b.candidate, b.seed, b.fold, b.best_epoch, b.epochs)
+        && bits(a.val_rmse) == bits(b.val_rmse)
+        && a.dead_fraction.to_bits() == b.dead_fraction.to_bits()
+        && a.zero_fraction.to_bits() == b.zero_fraction.to_bits()
+        && a.diverged == b.diverged
+}
+
+/// Why reports could not be merged.
+#[derive(Clone, Debug, PartialEq)]
+pub enum MergeError {
+    /// The reports do not fit together; the reason.
+    Refused(String),
+    /// Some cells have no result.
+    Incomplete(Gap),
+}
+
+/// The cells a set of reports lacks, and the commands that run only those.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Gap {
+    /// Labels of the missing cells, in cell order.
+    pub missing: Vec<String>,
+    /// Cells in the plan.
+    pub cells: usize,
+    /// The shard count the commands use.
+    pub count: usize,
+    /// The shards (of `count`) that hold the missing cells.
+    pub shards: Vec<usize>,
+    /// One shell command per shard in `shards` (empty if no report recorded its command).
+    pub commands: Vec<String>,
+    /// The reports those commands write, relative to their working directory.
+    pub reports: Vec<String>,
+    /// Cells those shards hold that are already done (nonzero only when the reports use
+    /// different shard counts); rerunning them gives the same results, so the merge accepts them.
+    pub extra: usize,
+}
+
+impl std::fmt::Display for MergeError {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        let g = match self {
+            MergeError::Refused(reason) => return f.write_str(reason),
+            MergeError::Incomplete(g) => g,
+        };
+        let list: Vec<String> = g
+            .shards
             .iter()
-            .position(|c| c.candidate == r.candidate && c.seed == r.seed && c.fold == r.fold)
-            .unwrap_or(usize::MAX)
+            .map(|i| format!("{i}/{}", g.count))
+            .collect();
+        writeln!(
+            f,
+            "{} of {} cells are missing (the cells of shard {}):",
+            g.missing.len(),
+            g.cells,
+            list.join(", ")
+        )?;
+        for m in &g.missing {
+            writeln!(f, "  {m}")?;
+        }
+        if g.extra > 0 {
+            writeln!(
+                f,
+                "(the reports use different shard counts: these shards also rerun {} cells \
+                 already done, with the same results)",
+                g.extra
+            )?;
+        }
+        if g.commands.is_empty() {
+            return write!(
+                f,
+                "no report recorded its command: run the sweep's compare command again with \
+                 --shard {} (one run each), then merge again with the new reports added",
+                list.join(", --shard ")
+            );
+        }
+        writeln!(f, "run only those with:")?;
+        for c in &g.commands {
+            writeln!(f, "  {c}")?;
+        }
+        write!(
+            f,
+            "then merge again with {} added to --reports",
+            g.reports.join(",")
+        )
+    }
+}
+
+/// Combines reports of one plan — shards, reruns of shards, even shards of different counts —
+/// into the full report. A cell reported twice must have the same result both times (wall time
+/// aside), else the merge is refused; missing cells make [`MergeError::Incomplete`], which says
+/// how to run just those.
+pub fn merge(reports: &[SweepReport]) -> Result<SweepReport, MergeError> {
+    let refuse = |m: String| Err(MergeError::Refused(m));
+    let Some(first) = reports.first() else {
+        return refuse("no reports to merge".to_string());
     };
-    runs.sort_by_key(index);
-    if runs.len() != cells.len() {
-        return Err(format!("{} runs for {} cells", runs.len(), cells.len()));
+    let plan = &first.plan;
+    let cells = plan.cells();
+    let mut slots: Vec<Option<(usize, &RunResult)>> = vec![None; cells.len()];
+    for (k, r) in reports.iter().enumerate() {
+        if r.plan != *plan {
+            return refuse(format!(
+                "report {} (in the order given) comes from a different sweep than report 1: \
+                 the candidates, seeds, folds or settings differ",
+                k + 1
+            ));
+        }
+        if let (Some(a), Some(b)) = (&first.data, &r.data) {
+            if a != b {
+                return refuse(format!(
+                    "report {} ran on other data than report 1 ({b}, not {a})",
+                    k + 1
+                ));
+            }
+        }
+        if let Some((i, n)) = r.shard {
+            if n == 0 || i >= n {
+                return refuse(format!("report {} claims shard {i}/{n}", k + 1));
+            }
+        }
+        for run in &r.runs {
+            let Some(at) = plan.cell_index(run.candidate, run.seed, run.fold) else {
+                return refuse(format!(
+                    "report {} has a run (candidate {}, seed {}, fold {}) outside its plan",
+                    k + 1,
+                    run.candidate,
+                    run.seed,
+                    run.fold
+                ));
+            };
+            match slots[at] {
+                None => slots[at] = Some((k, run)),
+                Some((j, earlier)) if !same_outcome(earlier, run) => {
+                    return refuse(format!(
+                        "{} has two different results: validation RMSE {:?}, best epoch {} in \
+                         report {} but {:?}, {} in report {} (in the order given); the runs did \
+                         not compute the same way (another build or machine?): keep one of \
+                         the two reports",
+                        plan.cell_label(cells[at]),
+                        earlier.val_rmse,
+                        earlier.best_epoch,
+                        j + 1,
+                        run.val_rmse,
+                        run.best_epoch,
+                        k + 1
+                    ))
+                }
+                Some(_) => {}
+            }
+        }
+    }
+    let missing: Vec<usize> = (0..cells.len()).filter(|&c| slots[c].is_none()).collect();
+    if !missing.is_empty() {
+        return Err(MergeError::Incomplete(gap(reports, &missing)));
     }
     Ok(SweepReport {
         shard: None,
-        runs,
+        runs: slots
+            .into_iter()
+            .flatten()
+            .map(|(_, run)| run.clone())
+            .collect(),
+        invocation: None,
         ..first.clone()
     })
+}
+
+/// The shards holding the `missing` cells (by the shard count most reports use) and the
+/// commands that run them, built from a recorded invocation.
+fn gap(reports: &[SweepReport], missing: &[usize]) -> Gap {
+    let plan = &reports[0].plan;
+    let counts: Vec<usize> = reports
+        .iter()
+        .filter_map(|r| r.shard.map(|s| s.1))
+        .collect();
+    let count = counts
+        .iter()
+        .copied()
+        .max_by_key(|&n| (counts.iter().filter(|&&m| m == n).count(), usize::MAX - n))
+        .unwrap_or(1);
+    let mut shards: Vec<usize> = missing.iter().map(|c| c % count).collect();
+    shards.sort_unstable();
+    shards.dedup();
+    let recorded = reports
+        .iter()
+        .filter(|r| r.shard.is_some_and(|s| s.1 == count))
+        .chain(reports)
+        .find_map(|r| r.invocation.as_ref());
+    let (mut commands, mut paths) = (Vec::new(), Vec::new());
+    if let Some(inv) = recorded {
+        let dir = inv
+            .report()
+            .and_then(|p| std::path::Path::new(p).parent())
+            .map(|d| d.to_string_lossy().into_owned())
+            .unwrap_or_default();
+        for &i in &shards {
+            let name = format!("shard-{i}-of-{count}.json");
+            let path = if dir.is_empty() {
+                name
+            } else {
+                format!("{dir}/{name}")
+            };
+            commands.push(inv.for_shard(i, count, &path).shell());
+            paths.push(path);
+        }
+    }
+    let cells = plan.cells();
+    let in_shards = (0..cells.len())
+        .filter(|c| shards.binary_search(&(c % count)).is_ok())
+        .count();
+    Gap {
+        extra: in_shards - missing.len(),
+        missing: missing.iter().map(|&c| plan.cell_label(cells[c])).collect(),
+        cells: cells.len(),
+        count,
+        shards,
+        commands,
+        reports: paths,
+    }
 }
 
 /// Paired comparison of a candidate with the best one.
@@ -598,4 +856,24 @@ pub fn markdown(c: &Comparison) -> String {
         );
     }
     s
+}
+
+#[cfg(test)]
+mod tests {
+    use super::Fnv1a;
+
+    /// Test vectors of 64-bit FNV-1a from the FNV reference's test suite (from memory):
+    /// "" → cbf29ce484222325, "a" → af63dc4c8601ec8c, "foobar" → 85944171f73967e8.
+    #[test]
+    fn fnv1a_matches_the_reference_vectors() {
+        for (text, digest) in [
+            ("", 0xcbf2_9ce4_8422_2325_u64),
+            ("a", 0xaf63_dc4c_8601_ec8c),
+            ("foobar", 0x8594_4171_f739_67e8),
+        ] {
+            let mut h = Fnv1a::default();
+            h.bytes(text.as_bytes());
+            assert_eq!(h.0, digest, "{text:?}");
+        }
+    }
 }

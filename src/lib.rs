@@ -51,6 +51,7 @@ pub mod report;
 pub mod scalar;
 pub mod scale;
 pub mod schedule;
+pub mod shard;
 pub mod stats;
 pub mod train;
 

@@ -89,8 +89,9 @@ struct CompareArgs {
     /// Optimizer for every candidate.
     #[arg(long, value_name = "adam")]
     optimizer: Option<OptimizerChoice>,
-    /// Run only shard i of n of the grid and write a partial report (merge the parts later).
-    #[arg(long, value_name = "i/n")]
+    /// Run only shard i of n of the grid and write a partial report (merge the parts later);
+    /// auto: from a Slurm array task or a Kubernetes indexed Job (count in RELUME_SHARD_COUNT).
+    #[arg(long, value_name = "i/n|auto")]
     shard: Option<String>,
     #[command(flatten)]
     outputs: SweepOutputs,
@@ -976,19 +977,6 @@ fn inspect(a: InspectArgs) -> Result<(), Failure> {
     Ok(())
 }
 
-fn parse_shard(text: &str) -> Result<(usize, usize), Failure> {
-    let bad = || Failure::User(format!("--shard '{text}': expected i/n with 0 <= i < n"));
-    let (i, n) = text.split_once('/').ok_or_else(bad)?;
-    let (i, n): (usize, usize) = (
-        i.trim().parse().map_err(|_| bad())?,
-        n.trim().parse().map_err(|_| bad())?,
-    );
-    if n == 0 || i >= n {
-        return Err(bad());
-    }
-    Ok((i, n))
-}
-
 fn write_outputs(
     report: &relume::compare::SweepReport,
     outputs: &SweepOutputs,
@@ -1030,7 +1018,12 @@ fn compare(a: CompareArgs) -> Result<(), Failure> {
             "--activations needs at least one activation".to_string(),
         ));
     }
-    let shard = a.shard.as_deref().map(parse_shard).transpose()?;
+    let shard = a
+        .shard
+        .as_deref()
+        .map(|s| relume::shard::resolve(s, |k| std::env::var(k).ok()))
+        .transpose()
+        .map_err(Failure::User)?;
     let table = read_table(&a.table, &[])?;
     let spec = a.columns.spec();
     let base = Overrides {
@@ -1048,9 +1041,14 @@ fn compare(a: CompareArgs) -> Result<(), Failure> {
         plan.candidates.len(),
         plan.seeds,
         plan.fold_count(),
-        shard.map_or(String::new(), |(i, n)| format!(", shard {i}/{n}"))
+        shard.as_ref().map_or(String::new(), |s| format!(
+            ", shard {}/{} ({})",
+            s.index, s.count, s.source
+        ))
     );
-    let report = relume::compare::run(&table, &spec, &plan, shard)?;
+    let slice = shard.map(|s| (s.index, s.count));
+    let mut report = relume::compare::run(&table, &spec, &plan, slice)?;
+    report.invocation = Some(relume::shard::Invocation::current());
     write_outputs(&report, &a.outputs)?;
     eprintln!("\n{CAUTIONS}");
     Ok(())
@@ -1065,6 +1063,6 @@ fn merge(a: MergeArgs) -> Result<(), Failure> {
                 .map_err(|e| Failure::User(format!("{}: {e}", path.display())))?,
         );
     }
-    let merged = relume::compare::merge(&parts).map_err(Failure::User)?;
+    let merged = relume::compare::merge(&parts).map_err(|e| Failure::User(e.to_string()))?;
     write_outputs(&merged, &a.outputs)
 }
