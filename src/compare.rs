@@ -345,7 +345,7 @@ fn run_cell(
         seed: Some(cell.seed),
         ..plan.base.clone()
     };
-    let recipe = overrides.recipe();
+    let recipe = cell_recipe(&overrides, truth.len());
     let started = Instant::now();
     let fitted = Model::fit(
         &table.select(train_rows),
@@ -508,6 +508,19 @@ impl std::fmt::Display for MergeError {
             g.reports.join(",")
         )
     }
+}
+
+/// The recipe of a cell: the size-dependent settings (optimizer, epochs, patience, penalty)
+/// are those of the whole table of `rows` rows, held fixed across folds and candidates so the
+/// comparison trains what would ship; each cell trains one network with the recipe's own
+/// penalty (the seeds already average over initializations).
+pub fn cell_recipe(overrides: &Overrides, rows: usize) -> crate::Recipe {
+    let recipe = overrides.recipe();
+    let regime = recipe.config_for(rows);
+    let mut fixed = recipe.with_config(regime);
+    fixed.members = 1;
+    fixed.choose_penalty = false;
+    fixed
 }
 
 /// Combines reports of one plan — shards, reruns of shards, even shards of different counts —

@@ -49,7 +49,7 @@ fn model() -> String {
             assert!(o.status.success(), "{err}");
             for needle in [
                 "2000 rows",
-                "validation (400 rows): RMSE",
+                "validation (200 rows held out of all fitting, ensemble): RMSE",
                 "best epoch",
                 "Cautions",
                 "held-out",

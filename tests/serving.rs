@@ -247,11 +247,13 @@ fn the_row_predictor_agrees_with_the_training_forward_pass() {
     let table = read(&small_csv(40)).unwrap();
     let mut x = model.encoder.encode_inputs::<f32>(&table, None).unwrap();
     model.inputs.apply_in_place(&mut x);
-    let mut network = model.members[0].clone();
-    let scaled = network
-        .forward(x.view(), relume::layer::Pass::Infer)
-        .unwrap()
-        .to_owned();
+    // The served value is the members' average.
+    let mut sum = ndarray::Array2::<f32>::zeros((x.nrows(), 1));
+    for member in &model.members {
+        let mut network = member.clone();
+        sum += &network.forward(x.view(), relume::layer::Pass::Infer).unwrap();
+    }
+    let scaled = sum / model.members.len() as f32;
     let batch = model.target.invert(scaled.view());
     let rows = Predictor::new(&model).predict_table(&table).unwrap();
     let spread = model.target.sd[0];
@@ -290,13 +292,13 @@ fn damaged_files_give_clear_errors() {
         ),
         (
             "huge layer",
-            edit(&|v| v["layers"][0]["outputs"] = 4_000_000_000u64.into()),
+            edit(&|v| v["members"][0]["layers"][0]["outputs"] = 4_000_000_000u64.into()),
             "outputs is 4000000000",
         ),
         (
             "short parameters",
             edit(&|v| {
-                v["parameters"].as_array_mut().unwrap().pop();
+                v["members"][0]["parameters"].as_array_mut().unwrap().pop();
             }),
             "parameters stored",
         ),

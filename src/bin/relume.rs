@@ -1046,6 +1046,17 @@ fn compare(a: CompareArgs) -> Result<(), Failure> {
             s.index, s.count, s.source
         ))
     );
+    let fixed = relume::compare::cell_recipe(&plan.base, table.rows());
+    let regime = fixed.config_for(table.rows());
+    eprintln!(
+        "settings of the whole table ({} rows), the same in every fold and candidate: {} \
+         optimizer, up to {} epochs, L2 {:e}, validation {:.0}%; one network per run",
+        table.rows(),
+        regime.optimizer.name(),
+        regime.epochs,
+        regime.objective.penalty.l2,
+        100.0 * regime.val_frac
+    );
     let slice = shard.map(|s| (s.index, s.count));
     let mut report = relume::compare::run(&table, &spec, &plan, slice)?;
     report.invocation = Some(relume::shard::Invocation::current());
