@@ -291,7 +291,7 @@ pub fn mean_sd_ci95(values: &[f64]) -> (f64, f64, f64) {
 /// The Wilcoxon signed-rank test of paired differences.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct Wilcoxon {
-    /// Non-zero differences used (zeros are dropped, as Wilcoxon 1945 does).
+    /// Non-zero differences used (zeros are dropped, as Wilcoxon 1945 does; so are NaNs).
     pub n: usize,
     /// Sum of the ranks of the positive differences (mid-ranks for ties).
     pub w_plus: f64,
@@ -306,11 +306,16 @@ pub struct Wilcoxon {
 pub const WILCOXON_EXACT_MAX: usize = 25;
 
 /// Two-sided Wilcoxon signed-rank test of `differences` against a zero median.
+///
+/// Zeros and NaNs are dropped. An infinite difference is kept: it is larger in size than every
+/// finite one, so it takes the top rank with its sign (infinities tie with each other and share
+/// mid-ranks). A run whose error went to +∞ thus counts as the largest possible loss rather than
+/// vanishing from the comparison; [1, ∞, 2, −0.5] gives n = 4, W+ = 9.
 pub fn wilcoxon(differences: &[f64]) -> Wilcoxon {
     let mut d: Vec<f64> = differences
         .iter()
         .copied()
-        .filter(|v| *v != 0.0 && v.is_finite())
+        .filter(|v| *v != 0.0 && !v.is_nan())
         .collect();
     let n = d.len();
     if n == 0 {
