@@ -211,7 +211,7 @@ fn special_functions_match_mpmath_at_50_digits() {
                 let large = v[1].max(v[2]) >= 1e3;
                 (
                     incomplete_beta(v[0], v[1], v[2]),
-                    if large { 5e-12 } else { 1e-12 },
+                    if large { 5e-12 } else { 3e-14 },
                 )
             }
             "tcdf" => (t_cdf(v[0], v[1]), if v[1] >= 1e5 { 4e-12 } else { 5e-14 }),
