@@ -109,15 +109,14 @@ fn predict_writes_keys_prediction_and_flag_from_a_file_or_stdin() {
     let mut lines = text.lines();
     assert_eq!(
         lines.next().unwrap(),
-        "outdoor_c,refrigerant,prediction,extrapolated,issue"
+        "outdoor_c,refrigerant,prediction,lower,upper,extrapolated,issue"
     );
     let first: Vec<&str> = lines.next().unwrap().split(',').collect();
     assert_eq!(first[0..2], ["35.9", "hfc"]);
-    // Row 1 of the demo table: 38.136 kW measured.
-    assert!(
-        (first[2].parse::<f64>().unwrap() - 38.136).abs() < 1.5,
-        "{first:?}"
-    );
+    // Row 1 of the demo table: 38.136 kW measured, inside the interval around the prediction.
+    let number = |k: usize| first[k].parse::<f64>().unwrap();
+    assert!((number(2) - 38.136).abs() < 1.5, "{first:?}");
+    assert!(number(3) < number(2) && number(2) < number(4), "{first:?}");
     assert_eq!(text.lines().count(), 2001);
 
     let input = "outdoor_c,setpoint_c,door_openings_per_h,load_t,refrigerant\n31,-18,12,20,co2\n60,-18,12,20,co2\n31,-18,12,20,propane\n";
@@ -139,7 +138,7 @@ fn predict_writes_keys_prediction_and_flag_from_a_file_or_stdin() {
     assert!(o.status.success());
     let text = String::from_utf8(o.stdout).unwrap();
     let rows: Vec<&str> = text.lines().collect();
-    assert_eq!(rows[0], "line,prediction,extrapolated,issue");
+    assert_eq!(rows[0], "line,prediction,lower,upper,extrapolated,issue");
     assert!(
         rows[1].starts_with("2,") && rows[1].ends_with(",false,"),
         "{}",
@@ -176,6 +175,11 @@ fn evaluate_prints_metrics_and_writes_the_agreed_json() {
     let json: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(&report).unwrap()).unwrap();
     assert_eq!(json["rows"], 2000);
+    // The interval's coverage on the rows, its nominal level and mean width (the demo model
+    // has a 90% split-conformal interval).
+    assert_eq!(json["nominal_coverage"].as_f64(), Some(0.9));
+    assert!(json["coverage"].as_f64().unwrap() > 0.8);
+    assert!(json["mean_interval_width"].as_f64().unwrap() > 0.0);
     for key in ["rmse", "mae", "r2"] {
         assert!(json[key].is_number(), "{key}");
     }

@@ -106,8 +106,7 @@ fn split_conformal_coverage_over_repeated_splits_meets_the_guarantee() {
         coverages.push(coverage_of(&model, &xt, &yt).0);
     }
     let mean = coverages.iter().sum::<f64>() / reps as f64;
-    let sd = (coverages.iter().map(|c| (c - mean).powi(2)).sum::<f64>() / (reps - 1) as f64)
-        .sqrt();
+    let sd = (coverages.iter().map(|c| (c - mean).powi(2)).sum::<f64>() / (reps - 1) as f64).sqrt();
     let se = sd / (reps as f64).sqrt();
     let (lo, hi) = (0.9, 0.9 + 1.0 / (n_cal as f64 + 1.0));
     println!("mean coverage {mean:.4} (se {se:.4}), band [{lo}, {hi:.4}], n_cal {n_cal}");
@@ -173,7 +172,11 @@ fn the_predictor_averages_the_members_and_saves_them_all() {
     let row = [Cell::Number(x[(0, 0)]), Cell::Number(x[(0, 1)])];
     let served = p.predict_row(&row, &mut p.scratch()).unwrap();
     let mean = outs.iter().sum::<f64>() / 3.0;
-    assert!((served.value - mean).abs() < 1e-5, "{} {mean}", served.value);
+    assert!(
+        (served.value - mean).abs() < 1e-5,
+        "{} {mean}",
+        served.value
+    );
     // Save and load: every member comes back, predictions are the same bits.
     let dir = std::env::temp_dir().join(format!("relume-ens-{}", std::process::id()));
     std::fs::create_dir_all(&dir).unwrap();

@@ -251,7 +251,9 @@ fn the_row_predictor_agrees_with_the_training_forward_pass() {
     let mut sum = ndarray::Array2::<f32>::zeros((x.nrows(), 1));
     for member in &model.members {
         let mut network = member.clone();
-        sum += &network.forward(x.view(), relume::layer::Pass::Infer).unwrap();
+        sum += &network
+            .forward(x.view(), relume::layer::Pass::Infer)
+            .unwrap();
     }
     let scaled = sum / model.members.len() as f32;
     let batch = model.target.invert(scaled.view());
