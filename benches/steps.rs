@@ -5,10 +5,10 @@ use criterion::{criterion_group, criterion_main, Criterion};
 use ndarray::linalg::general_mat_mul;
 use ndarray::Array2;
 use relume::data::{EncoderSpec, ReadOptions, Table};
+use relume::fit::monitor::MonitorConfig;
 use relume::kernels::matmul;
-use relume::layer::Pass;
-use relume::monitor::MonitorConfig;
-use relume::predict::Cell;
+use relume::nn::layer::Pass;
+use relume::serve::predict::Cell;
 use relume::{
     Activation, Adam, Loss, Model, NetworkPlan, Optimizer, Predictor, Recipe, TrainConfig,
 };

@@ -4,8 +4,8 @@
 //!
 //! Run: `cargo run --release --example demo [-- table.csv [model.json]]`.
 
-use relume::monitor::MonitorConfig;
-use relume::predict::Cell;
+use relume::fit::monitor::MonitorConfig;
+use relume::serve::predict::Cell;
 use relume::{EncoderSpec, Model, Predictor, Recipe, Table};
 use std::error::Error;
 use std::path::PathBuf;

@@ -16,10 +16,10 @@
 use ndarray::linalg::general_mat_mul;
 use ndarray::{Array2, ArrayView2};
 use relume::data::{EncoderSpec, ReadOptions, Table};
+use relume::fit::monitor::MonitorConfig;
 use relume::kernels::{matmul, set_threads};
-use relume::layer::{Layer, Pass, Pointwise};
-use relume::monitor::MonitorConfig;
-use relume::predict::Cell;
+use relume::nn::layer::{Layer, Pass, Pointwise};
+use relume::serve::predict::Cell;
 use relume::{Activation, Adam, Loss, Model, NetworkPlan, Optimizer, Predictor, Recipe};
 use std::hint::black_box;
 use std::time::Instant;

@@ -9,8 +9,8 @@
 
 use nalgebra::{DMatrix, DVector};
 use relume::data::{EncoderSpec, Impute, ReadOptions, Table};
-use relume::model::Model;
-use relume::monitor::MonitorConfig;
+use relume::fit::monitor::MonitorConfig;
+use relume::serve::model::Model;
 use relume::{Encoder, Predictor, Recipe, Standardizer};
 use std::path::Path;
 use std::time::Instant;
@@ -80,7 +80,7 @@ fn split(table: &Table, target: &str, seed: u64) -> (Vec<usize>, Vec<usize>) {
     let y = column(table, target);
     let rows: Vec<usize> = (0..table.rows()).filter(|&r| !y[r].is_nan()).collect();
     let n_test = rows.len() / 5;
-    let (train_idx, test_idx) = relume::train::holdout_indices(rows.len(), n_test, seed);
+    let (train_idx, test_idx) = relume::fit::train::holdout_indices(rows.len(), n_test, seed);
     (
         train_idx.iter().map(|&i| rows[i]).collect(),
         test_idx.iter().map(|&i| rows[i]).collect(),

@@ -17,7 +17,7 @@ use axum::http::StatusCode;
 use axum::response::{IntoResponse, Response};
 use axum::routing::{get, post};
 use axum::{Json, Router};
-use relume::predict::{Cell, Predictor};
+use relume::serve::predict::{Cell, Predictor};
 use serde_json::{json, Value};
 use std::sync::Arc;
 

@@ -25,56 +25,36 @@
 //! assert!(mse.is_finite());
 //! ```
 
-pub mod activation;
-pub mod atomic;
-mod buffer;
-pub mod compare;
+// The stages a table goes through, bottom up: every module imports only from the stages
+// above it in this list.
 pub mod data;
-pub mod ensemble;
-pub mod error;
-pub mod gradcheck;
-pub mod init;
-pub mod interval;
+pub mod fit;
 pub mod kernels;
-pub mod layer;
-pub mod loss;
-pub mod metrics;
-pub mod model;
-pub mod monitor;
-pub mod network;
-pub mod objective;
-pub mod optim;
-pub mod penalty;
-pub mod predict;
-pub mod recipe;
+pub mod nn;
 pub mod report;
-pub mod scalar;
-pub mod scale;
-pub mod schedule;
-pub mod shard;
-pub mod stats;
-pub mod train;
+pub mod serve;
+pub mod sweep;
 
-pub use activation::Activation;
 pub use data::{Encoder, EncoderSpec, Table};
-pub use error::{ConfigError, ShapeError};
-pub use gradcheck::{check_gradients, CheckOptions, GradReport};
-pub use init::{Draw, Fan, Init};
-pub use layer::{Layer, LayerSpec, Pass};
-pub use loss::Loss;
-pub use model::Model;
-pub use monitor::{Monitor, MonitorConfig, Revival};
-pub use network::{Network, NetworkPlan};
-pub use objective::Objective;
-pub use optim::{Adam, Optimizer, OptimizerChoice};
-pub use penalty::Penalty;
-pub use predict::Predictor;
-pub use recipe::{Overrides, Recipe, Trained};
+pub use fit::monitor::{Monitor, MonitorConfig, Revival};
+pub use fit::objective::Objective;
+pub use fit::optim::{Adam, Optimizer, OptimizerChoice};
+pub use fit::penalty::Penalty;
+pub use fit::recipe::{Overrides, Recipe, Trained};
+pub use fit::scale::Standardizer;
+pub use fit::schedule::Schedule;
+pub use fit::train::{train, TrainConfig, TrainError, TrainSummary};
+pub use kernels::scalar::Scalar;
+pub use nn::activation::Activation;
+pub use nn::error::{ConfigError, ShapeError};
+pub use nn::gradcheck::{check_gradients, CheckOptions, GradReport};
+pub use nn::init::{Draw, Fan, Init};
+pub use nn::layer::{Layer, LayerSpec, Pass};
+pub use nn::loss::Loss;
+pub use nn::network::{Network, NetworkPlan};
 pub use report::RunReport;
-pub use scalar::Scalar;
-pub use scale::Standardizer;
-pub use schedule::Schedule;
-pub use train::{train, TrainConfig, TrainError, TrainSummary};
+pub use serve::model::Model;
+pub use serve::predict::Predictor;
 
 /// The README's code, compiled and run as a doctest so it stays true.
 #[cfg(doctest)]

@@ -2,7 +2,7 @@
 //! differences, finite outputs at extreme inputs, and name parsing.
 
 use approx::assert_relative_eq;
-use relume::activation::{normal_cdf, softplus, GELU_TANH_CUBIC, SELU_ALPHA, SELU_LAMBDA};
+use relume::nn::activation::{normal_cdf, softplus, GELU_TANH_CUBIC, SELU_ALPHA, SELU_LAMBDA};
 use relume::Activation;
 
 /// Every activation, plus non-default parameters so each parameter path is exercised.

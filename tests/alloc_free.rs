@@ -2,8 +2,8 @@
 //! binary (one test only, so no other thread allocates while it counts).
 
 use relume::data::{EncoderSpec, ReadOptions, Table};
-use relume::monitor::MonitorConfig;
-use relume::predict::Cell;
+use relume::fit::monitor::MonitorConfig;
+use relume::serve::predict::Cell;
 use relume::{Model, Predictor, Recipe};
 
 #[path = "../examples/support/counting.rs"]

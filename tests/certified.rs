@@ -9,8 +9,8 @@ mod friedman;
 mod nist;
 
 use ndarray::{Array2, Axis};
-use relume::optim::OptimizerChoice;
-use relume::train::{EpochRecord, Flow, Observer};
+use relume::fit::optim::OptimizerChoice;
+use relume::fit::train::{EpochRecord, Flow, Observer};
 use relume::{Activation, Network, Recipe, TrainConfig};
 
 fn rss(pred: &Array2<f64>, y: &Array2<f64>) -> f64 {
@@ -118,7 +118,7 @@ fn default_mlp_holdout_rmse_stays_near_the_certified_residual_sd() {
     for name in ["Gauss1", "Kirby2", "Nelson"] {
         let set = nist_set(name);
         let n = set.y.len();
-        let (train, test) = relume::train::holdout_indices(n, n / 5, 2026);
+        let (train, test) = relume::fit::train::holdout_indices(n, n / 5, 2026);
         let pick = |m: &Array2<f64>, idx: &[usize]| m.select(Axis(0), idx);
         let mut trained = Recipe::default()
             .fit(pick(&set.x, &train).view(), pick(&set.y, &train).view())

@@ -1,9 +1,9 @@
 //! The activation comparison: paired design, shard/merge equality, thread-count independence,
 //! summaries and outputs.
 
-use relume::compare::{markdown, merge, run, summarize, RunResult, SweepPlan, SweepReport};
 use relume::data::{EncoderSpec, ReadOptions, Table};
 use relume::report::plot_comparison;
+use relume::sweep::compare::{markdown, merge, run, summarize, RunResult, SweepPlan, SweepReport};
 use relume::{Activation, Overrides};
 
 fn table() -> Table {

@@ -9,7 +9,7 @@ mod common;
 
 use common::normal_matrix;
 use ndarray::{Array2, ArrayView2, Zip};
-use relume::layer::{Layer, LayerSpec, Pass};
+use relume::nn::layer::{Layer, LayerSpec, Pass};
 use relume::{check_gradients, Activation, CheckOptions, Init, Loss, Network};
 
 const TOLERANCE: f64 = 1e-6;
@@ -154,7 +154,7 @@ fn prelu_slopes_per_unit_and_shared() {
                 let mut net = network(act, &[0, 1, 2], 0.0, seed);
                 // Move the slopes off their common start so each one is checked on its own.
                 for t in net.tensors() {
-                    if t.role == relume::layer::Role::Slope {
+                    if t.role == relume::nn::layer::Role::Slope {
                         for (k, p) in t.range.enumerate() {
                             net.params_mut()[p] = 0.1 + 0.07 * k as f64;
                         }

@@ -6,9 +6,9 @@ mod common;
 use common::normal_matrix;
 use ndarray::Array2;
 use relume::data::{EncoderSpec, ReadOptions, Table};
-use relume::monitor::MonitorConfig;
-use relume::optim::OptimizerChoice;
-use relume::predict::Cell;
+use relume::fit::monitor::MonitorConfig;
+use relume::fit::optim::OptimizerChoice;
+use relume::serve::predict::Cell;
 use relume::{train, Activation, Model, NetworkPlan, Predictor, Recipe, TrainConfig, TrainError};
 use std::path::PathBuf;
 use std::time::{Duration, Instant};
@@ -202,7 +202,7 @@ fn sixteen_threads_sharing_a_predictor_match_the_sequential_results() {
             )
         })
         .collect();
-    let predict = |p: &Predictor, scratch: &mut relume::predict::Scratch, i: usize| {
+    let predict = |p: &Predictor, scratch: &mut relume::serve::predict::Scratch, i: usize| {
         let (a, b, k) = rows[i];
         p.predict_row(&[Cell::Number(a), Cell::Number(b), Cell::Text(k)], scratch)
             .unwrap()

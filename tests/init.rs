@@ -1,6 +1,6 @@
 //! Initializers against the variance formulas of the papers.
 
-use relume::init::{rng_from_seed, Draw, Fan, Init};
+use relume::nn::init::{rng_from_seed, Draw, Fan, Init};
 
 fn draw(init: Init, fan_in: usize, fan_out: usize, seed: u64) -> Vec<f64> {
     let mut w = vec![0.0; fan_in * fan_out];

@@ -5,10 +5,10 @@ mod friedman;
 
 use ndarray::Array2;
 use relume::data::{EncoderSpec, ReadOptions, Table};
-use relume::interval::Conformal;
-use relume::model::Model;
-use relume::monitor::MonitorConfig;
-use relume::predict::Cell;
+use relume::fit::monitor::MonitorConfig;
+use relume::serve::interval::Conformal;
+use relume::serve::model::Model;
+use relume::serve::predict::Cell;
 use relume::{Overrides, Predictor};
 use std::path::PathBuf;
 
@@ -134,7 +134,7 @@ fn friedman_1_default_ensemble_rmse_and_coverage() {
         "Friedman #1: test RMSE {rmse:.4}, coverage {coverage:.4}, L2 {:?}",
         model.summary.l2
     );
-    assert_eq!(model.members.len(), relume::ensemble::DEFAULT_MEMBERS);
+    assert_eq!(model.members.len(), relume::fit::ensemble::DEFAULT_MEMBERS);
     assert!(rmse <= 1.10, "test RMSE {rmse:.4} > 1.10 × the noise SD");
     assert!((0.88..=0.92).contains(&coverage), "coverage {coverage:.4}");
 }

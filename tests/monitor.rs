@@ -5,8 +5,8 @@ mod common;
 
 use common::normal_matrix;
 use ndarray::{array, Array2};
-use relume::monitor::{dormant_scores, Monitor, MonitorConfig, Revival, WarningKind};
-use relume::optim::OptimizerChoice;
+use relume::fit::monitor::{dormant_scores, Monitor, MonitorConfig, Revival, WarningKind};
+use relume::fit::optim::OptimizerChoice;
 use relume::report::{plot_run, DataShape, PlotOptions};
 use relume::{
     train, Activation, Init, LayerSpec, Network, NetworkPlan, Recipe, RunReport, TrainConfig,

@@ -4,7 +4,7 @@ mod common;
 
 use common::normal_matrix;
 use ndarray::Array2;
-use relume::layer::Role;
+use relume::nn::layer::Role;
 use relume::{Activation, ConfigError, Init, LayerSpec, Loss, Network, NetworkPlan, Pass};
 
 #[test]

@@ -1,8 +1,8 @@
 //! Optimizers against the update rules and results of their papers.
 
 use nalgebra::{Matrix2, Vector2};
-use relume::optim::{Adam, Lbfgs, LbfgsOutcome, LbfgsProblem, RmsProp, Sgd};
-use relume::schedule::Schedule;
+use relume::fit::optim::{Adam, Lbfgs, LbfgsOutcome, LbfgsProblem, RmsProp, Sgd};
+use relume::fit::schedule::Schedule;
 use relume::Optimizer;
 
 #[test]

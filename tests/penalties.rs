@@ -4,8 +4,8 @@
 mod common;
 
 use common::normal_matrix;
-use relume::layer::Role;
-use relume::penalty::Penalty;
+use relume::fit::penalty::Penalty;
+use relume::nn::layer::Role;
 use relume::{check_gradients, Activation, CheckOptions, Loss, NetworkPlan, Objective};
 
 #[test]

@@ -183,7 +183,9 @@ fn products_split_over_two_threads_match_one_thread() {
         let mut adam = relume::Adam::new(1e-3);
         for _ in 0..5 {
             net.zero_grads();
-            let out = net.forward(x.view(), relume::layer::Pass::Train).unwrap();
+            let out = net
+                .forward(x.view(), relume::nn::layer::Pass::Train)
+                .unwrap();
             relume::Loss::Mse
                 .gradient_into(out, y.view(), grad.view_mut())
                 .unwrap();

@@ -7,7 +7,7 @@ use common::normal_matrix;
 use ndarray::Array2;
 use proptest::prelude::*;
 use relume::data::{Encoder, EncoderSpec, ReadOptions, Table};
-use relume::layer::{LayerSpec, Pass};
+use relume::nn::layer::{LayerSpec, Pass};
 use relume::{
     check_gradients, Activation, CheckOptions, Loss, Model, NetworkPlan, Recipe, TrainConfig,
 };

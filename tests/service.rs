@@ -6,7 +6,7 @@
 mod serve;
 
 use relume::data::{EncoderSpec, ReadOptions, Table};
-use relume::monitor::MonitorConfig;
+use relume::fit::monitor::MonitorConfig;
 use relume::{Model, Predictor, Recipe};
 use std::sync::Arc;
 use std::time::Duration;

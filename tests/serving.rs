@@ -4,10 +4,10 @@
 use relume::data::{
     kfold, stratified_kfold, DataError, Encoder, EncoderSpec, Impute, ReadOptions, Table,
 };
-use relume::metrics::Metrics;
-use relume::model::{Model, MAX_WIDTH};
-use relume::monitor::MonitorConfig;
-use relume::predict::{Cell, RowErrorKind};
+use relume::fit::monitor::MonitorConfig;
+use relume::serve::metrics::Metrics;
+use relume::serve::model::{Model, MAX_WIDTH};
+use relume::serve::predict::{Cell, RowErrorKind};
 use relume::{Predictor, Recipe};
 use std::path::PathBuf;
 
@@ -252,7 +252,7 @@ fn the_row_predictor_agrees_with_the_training_forward_pass() {
     for member in &model.members {
         let mut network = member.clone();
         sum += &network
-            .forward(x.view(), relume::layer::Pass::Infer)
+            .forward(x.view(), relume::nn::layer::Pass::Infer)
             .unwrap();
     }
     let scaled = sum / model.members.len() as f32;

@@ -7,9 +7,9 @@
 //! mapping under a real Slurm. `JOB_COMPLETION_INDEX` (0 to completions − 1, no count) is the
 //! Kubernetes Job documentation's "Indexed completion mode", from memory.
 
-use relume::compare::{merge, run, MergeError, RunResult, SweepPlan, SweepReport};
 use relume::data::{EncoderSpec, ReadOptions, Table};
-use relume::shard::{from_environment, resolve, Invocation};
+use relume::sweep::compare::{merge, run, MergeError, RunResult, SweepPlan, SweepReport};
+use relume::sweep::shard::{from_environment, resolve, Invocation};
 use relume::{Activation, Overrides};
 use std::path::{Path, PathBuf};
 use std::process::{Command, Output};

@@ -4,7 +4,7 @@
 //! tests/data/wilcoxon_inf_scipy.txt) and brute force.
 
 use proptest::prelude::*;
-use relume::stats::{incomplete_beta, ln_gamma, mean_sd_ci95, t_cdf, t_quantile, wilcoxon};
+use relume::sweep::stats::{incomplete_beta, ln_gamma, mean_sd_ci95, t_cdf, t_quantile, wilcoxon};
 use statrs::distribution::{ContinuousCDF, StudentsT};
 use statrs::function::beta::beta_reg;
 use statrs::function::gamma::ln_gamma as statrs_ln_gamma;

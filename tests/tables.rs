@@ -5,9 +5,9 @@ use relume::data::{
     list_some, parse_iso_date, DataError, Encoder, EncoderSpec, FeatureEncoding, Impute,
     ReadOptions, Table, UnseenPolicy, OTHER_LEVEL,
 };
-use relume::model::Model;
-use relume::monitor::MonitorConfig;
-use relume::predict::{Cell, RowErrorKind};
+use relume::fit::monitor::MonitorConfig;
+use relume::serve::model::Model;
+use relume::serve::predict::{Cell, RowErrorKind};
 use relume::{Overrides, Predictor};
 use std::path::Path;
 
@@ -239,7 +239,7 @@ fn iso_dates_match_a_reference_date_library() {
         assert_eq!(p.days, (day - epoch).num_days() as f64, "{text}");
         assert_eq!(p.day_of_year, day.ordinal(), "{text}");
         assert_eq!(p.weekday, day.weekday().num_days_from_monday(), "{text}");
-        day = day + chrono::Duration::days(13);
+        day += chrono::Duration::days(13);
         checked += 1;
     }
     assert!(checked > 5000);

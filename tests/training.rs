@@ -6,9 +6,9 @@ mod common;
 use common::normal_matrix;
 use nalgebra::{DMatrix, DVector};
 use ndarray::{Array2, Axis};
-use relume::layer::Role;
-use relume::optim::OptimizerChoice;
-use relume::train::{clip, EpochRecord, Flow, Observer, StopReason};
+use relume::fit::optim::OptimizerChoice;
+use relume::fit::train::{clip, EpochRecord, Flow, Observer, StopReason};
+use relume::nn::layer::Role;
 use relume::{
     train, Activation, Init, LayerSpec, Loss, Network, NetworkPlan, Objective, Penalty,
     TrainConfig, TrainError,
@@ -287,7 +287,7 @@ fn clipping_keeps_every_step_norm_bounded_in_training() {
         .unwrap();
     struct MaxNorm(f64);
     impl Observer<f64> for MaxNorm {
-        fn after_step(&mut self, _: &relume::train::StepRecord, net: &Network<f64>) {
+        fn after_step(&mut self, _: &relume::fit::train::StepRecord, net: &Network<f64>) {
             let norm = net.grads().iter().map(|g| g * g).sum::<f64>().sqrt();
             self.0 = self.0.max(norm);
         }

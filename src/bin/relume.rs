@@ -5,10 +5,10 @@
 use clap::{Args, Parser, Subcommand};
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 use relume::data::{list_some, DataError, EncoderSpec, Impute, ReadOptions, Table, UnseenPolicy};
-use relume::metrics::Metrics;
-use relume::model::{FitError, ModelError};
-use relume::monitor::MonitorConfig;
+use relume::fit::monitor::MonitorConfig;
 use relume::report::{plot_run, PlotOptions};
+use relume::serve::metrics::Metrics;
+use relume::serve::model::{FitError, ModelError};
 use relume::{Activation, Init, LayerSpec, Model, OptimizerChoice, Overrides, Predictor};
 use std::io::{IsTerminal, Write};
 use std::path::{Path, PathBuf};
@@ -538,7 +538,7 @@ fn train(a: TrainArgs) -> Result<(), Failure> {
         }
     }
     // Each kind of warning once per layer, with its remedy.
-    let mut shown: Vec<(relume::monitor::WarningKind, Option<usize>)> = Vec::new();
+    let mut shown: Vec<(relume::fit::monitor::WarningKind, Option<usize>)> = Vec::new();
     for w in &report.warnings {
         if !shown.contains(&(w.kind, w.layer)) {
             shown.push((w.kind, w.layer));
@@ -568,7 +568,8 @@ fn train(a: TrainArgs) -> Result<(), Failure> {
                 ..PlotOptions::default()
             },
         );
-        relume::atomic::write_atomic(path, svg.as_bytes()).map_err(|e| io_failure(path, e))?;
+        relume::serve::atomic::write_atomic(path, svg.as_bytes())
+            .map_err(|e| io_failure(path, e))?;
         eprintln!("chart written to {}", path.display());
     }
     eprintln!("\n{CAUTIONS}");
@@ -577,8 +578,8 @@ fn train(a: TrainArgs) -> Result<(), Failure> {
 
 /// The ensemble's members, the penalty choice and the interval, one line each.
 fn print_ensemble(
-    s: &relume::model::ModelSummary,
-    interval: Option<&relume::interval::Conformal>,
+    s: &relume::serve::model::ModelSummary,
+    interval: Option<&relume::serve::interval::Conformal>,
     say: impl Fn(String),
 ) {
     if !s.penalty_grid.is_empty() {
@@ -789,7 +790,8 @@ fn predict(a: PredictArgs) -> Result<(), Failure> {
     }
     match &a.out {
         Some(path) => {
-            relume::atomic::write_atomic(path, text.as_bytes()).map_err(|e| io_failure(path, e))?;
+            relume::serve::atomic::write_atomic(path, text.as_bytes())
+                .map_err(|e| io_failure(path, e))?;
             eprintln!("{} predictions written to {}", rows.len(), path.display());
         }
         None => match std::io::stdout().write_all(text.as_bytes()) {
@@ -902,7 +904,8 @@ fn evaluate(a: EvaluateArgs) -> Result<(), Failure> {
         });
         let text =
             serde_json::to_string_pretty(&json).map_err(|e| Failure::Internal(e.to_string()))?;
-        relume::atomic::write_atomic(path, text.as_bytes()).map_err(|e| io_failure(path, e))?;
+        relume::serve::atomic::write_atomic(path, text.as_bytes())
+            .map_err(|e| io_failure(path, e))?;
         eprintln!("metrics written to {}", path.display());
     }
     Ok(())
@@ -978,7 +981,7 @@ fn inspect(a: InspectArgs) -> Result<(), Failure> {
 }
 
 fn write_outputs(
-    report: &relume::compare::SweepReport,
+    report: &relume::sweep::compare::SweepReport,
     outputs: &SweepOutputs,
 ) -> Result<(), Failure> {
     let (json, table, plot) = (
@@ -987,7 +990,7 @@ fn write_outputs(
         outputs.plot.as_ref(),
     );
     if let Some(path) = json {
-        relume::atomic::write_atomic(path, report.to_json().as_bytes())
+        relume::serve::atomic::write_atomic(path, report.to_json().as_bytes())
             .map_err(|e| io_failure(path, e))?;
         eprintln!("report written to {}", path.display());
     }
@@ -997,16 +1000,18 @@ fn write_outputs(
         }
         return Ok(());
     }
-    let comparison = relume::compare::summarize(report).map_err(Failure::User)?;
-    let md = relume::compare::markdown(&comparison);
+    let comparison = relume::sweep::compare::summarize(report).map_err(Failure::User)?;
+    let md = relume::sweep::compare::markdown(&comparison);
     println!("{md}");
     if let Some(path) = table {
-        relume::atomic::write_atomic(path, md.as_bytes()).map_err(|e| io_failure(path, e))?;
+        relume::serve::atomic::write_atomic(path, md.as_bytes())
+            .map_err(|e| io_failure(path, e))?;
         eprintln!("table written to {}", path.display());
     }
     if let Some(path) = plot {
         let svg = relume::report::plot_comparison(&comparison, report);
-        relume::atomic::write_atomic(path, svg.as_bytes()).map_err(|e| io_failure(path, e))?;
+        relume::serve::atomic::write_atomic(path, svg.as_bytes())
+            .map_err(|e| io_failure(path, e))?;
         eprintln!("chart written to {}", path.display());
     }
     Ok(())
@@ -1021,7 +1026,7 @@ fn compare(a: CompareArgs) -> Result<(), Failure> {
     let shard = a
         .shard
         .as_deref()
-        .map(|s| relume::shard::resolve(s, |k| std::env::var(k).ok()))
+        .map(|s| relume::sweep::shard::resolve(s, |k| std::env::var(k).ok()))
         .transpose()
         .map_err(Failure::User)?;
     let table = read_table(&a.table, &[])?;
@@ -1032,8 +1037,14 @@ fn compare(a: CompareArgs) -> Result<(), Failure> {
         optimizer: a.optimizer,
         ..Overrides::default()
     };
-    let plan =
-        relume::compare::SweepPlan::grid(&a.activations, &a.inits, &a.lrs, a.seeds, a.folds, base);
+    let plan = relume::sweep::compare::SweepPlan::grid(
+        &a.activations,
+        &a.inits,
+        &a.lrs,
+        a.seeds,
+        a.folds,
+        base,
+    );
     let cells = plan.cells().len();
     eprintln!(
         "{}: {} candidates × {} seeds × {} folds = {cells} runs{}",
@@ -1046,7 +1057,7 @@ fn compare(a: CompareArgs) -> Result<(), Failure> {
             s.index, s.count, s.source
         ))
     );
-    let fixed = relume::compare::cell_recipe(&plan.base, table.rows());
+    let fixed = relume::sweep::compare::cell_recipe(&plan.base, table.rows());
     let regime = fixed.config_for(table.rows());
     eprintln!(
         "settings of the whole table ({} rows), the same in every fold and candidate: {} \
@@ -1058,8 +1069,8 @@ fn compare(a: CompareArgs) -> Result<(), Failure> {
         100.0 * regime.val_frac
     );
     let slice = shard.map(|s| (s.index, s.count));
-    let mut report = relume::compare::run(&table, &spec, &plan, slice)?;
-    report.invocation = Some(relume::shard::Invocation::current());
+    let mut report = relume::sweep::compare::run(&table, &spec, &plan, slice)?;
+    report.invocation = Some(relume::sweep::shard::Invocation::current());
     write_outputs(&report, &a.outputs)?;
     eprintln!("\n{CAUTIONS}");
     Ok(())
@@ -1070,10 +1081,10 @@ fn merge(a: MergeArgs) -> Result<(), Failure> {
     for path in &a.reports {
         let text = std::fs::read_to_string(path).map_err(|e| io_failure(path, e))?;
         parts.push(
-            relume::compare::SweepReport::from_json(&text)
+            relume::sweep::compare::SweepReport::from_json(&text)
                 .map_err(|e| Failure::User(format!("{}: {e}", path.display())))?,
         );
     }
-    let merged = relume::compare::merge(&parts).map_err(|e| Failure::User(e.to_string()))?;
+    let merged = relume::sweep::compare::merge(&parts).map_err(|e| Failure::User(e.to_string()))?;
     write_outputs(&merged, &a.outputs)
 }

@@ -109,7 +109,7 @@ fn parse_time(t: &str) -> Option<(f64, f64)> {
                 b'-' => -1.0,
                 _ => return None,
             };
-            let o = rest[1..].as_bytes();
+            let o = &rest.as_bytes()[1..];
             if o.len() != 5 || o[2] != b':' {
                 return None;
             }

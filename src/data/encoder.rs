@@ -7,7 +7,7 @@
 use super::dates::{date_parts, parse_iso_date};
 use super::profile::{self, TextProfile};
 use super::{list_some, ColumnData, DataError, Table};
-use crate::scalar::Scalar;
+use crate::kernels::scalar::Scalar;
 use ndarray::Array2;
 use serde::{Deserialize, Serialize};
 use std::collections::HashMap;

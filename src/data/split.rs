@@ -1,13 +1,13 @@
 //! Seeded row splits: holdout, k-fold, and k-fold stratified by target quantile.
 
-use crate::init::rng_from_seed;
+use crate::nn::init::rng_from_seed;
 use rand::seq::SliceRandom;
 
 /// A seeded split of `0..rows` into (training, held-out) rows, `fraction` of them held out,
 /// each part in ascending order. The same as the trainer's own validation split.
 pub fn holdout(rows: usize, fraction: f64, seed: u64) -> (Vec<usize>, Vec<usize>) {
     let n = (rows as f64 * fraction).round() as usize;
-    crate::train::holdout_indices(rows, n.min(rows), seed)
+    crate::fit::train::holdout_indices(rows, n.min(rows), seed)
 }
 
 /// `k` seeded folds of `0..rows`: (training rows, held-out rows) per fold; every row is held

@@ -8,7 +8,7 @@
 //! elsewhere); the variant is chosen at run time, each with the tile shape that fits its
 //! register file.
 
-use crate::scalar::Scalar;
+use crate::kernels::scalar::Scalar;
 use std::any::TypeId;
 use std::cell::Cell;
 use std::mem::size_of;

@@ -4,11 +4,13 @@
 //! The product is our own (module `gemm`): packed and register-tiled, chosen at run time for
 //! AVX-512, AVX2 + FMA or baseline x86-64, allocation-free after warm-up, and split over helper
 //! threads (module `pool`) when [`set_threads`] asks for more than one and the product is large.
+//! [`scalar::Scalar`] is the number type (f32 or f64) every stage computes in.
 
 mod gemm;
 mod pool;
+pub mod scalar;
 
-use crate::scalar::Scalar;
+use crate::kernels::scalar::Scalar;
 use gemm::{Mat, MatMut};
 use ndarray::{ArrayView2, ArrayViewMut2};
 use std::sync::atomic::{AtomicU8, AtomicUsize, Ordering};

@@ -9,10 +9,10 @@ mod svg;
 
 pub use svg::{plot_comparison, plot_run, PlotOptions};
 
-use crate::layer::LayerSpec;
-use crate::monitor::{LayerStats, Monitor, TensorHealth, Warning};
-use crate::scalar::Scalar;
-use crate::train::{Rollback, StopReason, TrainConfig, TrainSummary};
+use crate::fit::monitor::{LayerStats, Monitor, TensorHealth, Warning};
+use crate::fit::train::{Rollback, StopReason, TrainConfig, TrainSummary};
+use crate::kernels::scalar::Scalar;
+use crate::nn::layer::LayerSpec;
 use serde::{Deserialize, Serialize};
 use std::path::Path;
 
@@ -182,6 +182,6 @@ impl RunReport {
 
     /// Writes the JSON to `path` atomically.
     pub fn write_json(&self, path: &Path) -> std::io::Result<()> {
-        crate::atomic::write_atomic(path, self.to_json().as_bytes())
+        crate::serve::atomic::write_atomic(path, self.to_json().as_bytes())
     }
 }

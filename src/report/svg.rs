@@ -326,8 +326,8 @@ pub fn plot_run(report: &RunReport, options: PlotOptions) -> String {
 /// An SVG chart of a comparison: each candidate's validation RMSE per run (dots) with its mean
 /// and 95% interval (bar), and its wall time per epoch.
 pub fn plot_comparison(
-    comparison: &crate::compare::Comparison,
-    report: &crate::compare::SweepReport,
+    comparison: &crate::sweep::compare::Comparison,
+    report: &crate::sweep::compare::SweepReport,
 ) -> String {
     let rows = comparison.candidates.len().max(1);
     let (w, row_h) = (860.0, 34.0);

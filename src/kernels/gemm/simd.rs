@@ -2,7 +2,7 @@
 //! The x86-64 types wrap the standard library's intrinsics; their methods are only called
 //! from code compiled with the matching target features (see `gemm::product_f32`).
 
-use crate::scalar::Scalar;
+use crate::kernels::scalar::Scalar;
 
 /// A register of `WIDTH` numbers of type `Elem`.
 pub(crate) trait Lanes: Copy {

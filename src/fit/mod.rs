@@ -1,0 +1,12 @@
+//! Training: optimizers, penalties and the objective, schedules, the training loop, the
+//! monitor, scaling, the size-dependent recipe and seed ensembles.
+
+pub mod ensemble;
+pub mod monitor;
+pub mod objective;
+pub mod optim;
+pub mod penalty;
+pub mod recipe;
+pub mod scale;
+pub mod schedule;
+pub mod train;

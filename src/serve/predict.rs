@@ -1,0 +1,439 @@
+//! The frozen predictor for services: shareable across threads (`Send + Sync`), a single-row
+//! path that writes into caller-owned scratch and allocates nothing, a table path, and an
+//! input-range guard that flags extrapolation.
+
+use crate::data::{Column, DataError, Encoder, LevelIndex, Table};
+use crate::fit::scale::Standardizer;
+use crate::nn::activation::{leaky, Activation};
+use crate::nn::layer::LayerSpec;
+use crate::serve::interval::Conformal;
+use crate::serve::model::{Model, ModelError};
+use std::path::Path;
+
+/// Fraction of a feature's training range beyond which a value counts as extrapolation.
+pub const DEFAULT_MARGIN: f64 = 0.05;
+
+pub use crate::data::Cell;
+/// What is wrong with a cell (the encoder's [`CellProblem`]).
+pub use crate::data::CellProblem as RowErrorKind;
+
+/// Why a row could not be predicted; `feature` indexes [`Predictor::feature_names`].
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct RowError {
+    /// Which feature (for [`RowErrorKind::WrongLength`]: the number of cells given).
+    pub feature: usize,
+    /// What is wrong with it.
+    pub kind: RowErrorKind,
+}
+
+/// The result of one row.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct RowPrediction {
+    /// The prediction (the members' average), in the target's own units.
+    pub value: f64,
+    /// Lower end of the prediction interval, if the model has one.
+    pub lower: Option<f64>,
+    /// Upper end of the prediction interval.
+    pub upper: Option<f64>,
+    /// Some numeric feature is outside its training range by more than the margin; which ones
+    /// are in the scratch ([`Scratch::out_of_range`]).
+    pub extrapolated: bool,
+    /// Some category was never seen in training and went through the pooled (or average)
+    /// level; which ones are in the scratch ([`Scratch::unseen`]).
+    pub unseen: bool,
+}
+
+/// Caller-owned working memory for [`Predictor::predict_row`]; make one per thread with
+/// [`Predictor::scratch`] and reuse it.
+#[derive(Clone, Debug)]
+pub struct Scratch {
+    a: Vec<f32>,
+    b: Vec<f32>,
+    input: Vec<f32>,
+    raw: Vec<f64>,
+    out_of_range: Vec<bool>,
+    unseen: Vec<bool>,
+}
+
+impl Scratch {
+    /// Per feature, whether the last row was outside the training range.
+    pub fn out_of_range(&self) -> &[bool] {
+        &self.out_of_range
+    }
+
+    /// Per feature, whether the last row had a category never seen in training.
+    pub fn unseen(&self) -> &[bool] {
+        &self.unseen
+    }
+}
+
+/// One inference step.
+#[derive(Clone, Debug)]
+enum Step {
+    Affine {
+        inputs: usize,
+        outputs: usize,
+        weights: Vec<f32>,
+        bias: Vec<f32>,
+    },
+    Act(Activation),
+    Prelu(Vec<f32>),
+}
+
+/// A frozen model for serving.
+#[derive(Clone, Debug)]
+pub struct Predictor {
+    encoder: Encoder,
+    inputs: Standardizer,
+    target: Standardizer,
+    members: Vec<Vec<Step>>,
+    interval: Option<Conformal>,
+    max_width: usize,
+    index: LevelIndex,
+    margin: f64,
+}
+
+impl Predictor {
+    /// A predictor for `model`, with the default extrapolation margin.
+    pub fn new(model: &Model) -> Predictor {
+        let members: Vec<Vec<Step>> = model.members.iter().map(steps_of).collect();
+        let max_width = model
+            .members
+            .iter()
+            .flat_map(|net| {
+                net.specs().into_iter().map(|s| match s {
+                    LayerSpec::Affine {
+                        inputs, outputs, ..
+                    } => inputs.max(outputs),
+                    LayerSpec::Activation { width, .. } | LayerSpec::Dropout { width, .. } => width,
+                })
+            })
+            .max()
+            .unwrap_or(1)
+            .max(model.encoder.width());
+        Predictor {
+            encoder: model.encoder.clone(),
+            inputs: model.inputs.clone(),
+            target: model.target.clone(),
+            members,
+            interval: model.interval.clone(),
+            max_width,
+            index: LevelIndex::new(&model.encoder),
+            margin: DEFAULT_MARGIN,
+        }
+    }
+
+    /// Ensemble members whose predictions are averaged.
+    pub fn member_count(&self) -> usize {
+        self.members.len()
+    }
+
+    /// The calibrated interval, if the model has one.
+    pub fn interval(&self) -> Option<&Conformal> {
+        self.interval.as_ref()
+    }
+
+    /// Loads a model file and freezes it.
+    pub fn load(path: &Path) -> Result<Predictor, ModelError> {
+        Ok(Predictor::new(&Model::load(path)?))
+    }
+
+    /// Sets the extrapolation margin as a fraction of each feature's training range.
+    pub fn with_margin(mut self, margin: f64) -> Self {
+        self.margin = margin.max(0.0);
+        self
+    }
+
+    /// Feature (column) names in the order rows must give them.
+    pub fn feature_names(&self) -> Vec<&str> {
+        self.encoder.features.iter().map(|f| f.name()).collect()
+    }
+
+    /// The encoder (columns, categories, training ranges).
+    pub fn encoder(&self) -> &Encoder {
+        &self.encoder
+    }
+
+    /// Working memory for [`Predictor::predict_row`].
+    pub fn scratch(&self) -> Scratch {
+        let features = &self.encoder.features;
+        Scratch {
+            a: vec![0.0; self.max_width],
+            b: vec![0.0; self.max_width],
+            input: vec![0.0; self.max_width],
+            raw: vec![0.0; features.iter().map(|f| f.width()).max().unwrap_or(0)],
+            out_of_range: vec![false; features.len()],
+            unseen: vec![false; features.len()],
+        }
+    }
+
+    /// A message for a row error, naming the feature.
+    pub fn explain(&self, error: &RowError) -> String {
+        let name = self
+            .encoder
+            .features
+            .get(error.feature)
+            .map_or("?", |f| f.name());
+        match error.kind {
+            RowErrorKind::WrongLength => format!(
+                "the row has {} values; the model takes {} ({})",
+                error.feature,
+                self.encoder.features.len(),
+                self.feature_names().join(", ")
+            ),
+            RowErrorKind::Missing => format!("'{name}' is empty and the model has no imputation"),
+            RowErrorKind::UnseenCategory => {
+                format!("'{name}' has a category that was not seen in training")
+            }
+            RowErrorKind::NotADate => {
+                format!("'{name}' must be an ISO 8601 date (YYYY-MM-DD[THH:MM[:SS]])")
+            }
+            RowErrorKind::NotANumber => format!("'{name}' must be a number"),
+            RowErrorKind::NotACategory => format!("'{name}' must be a category (text)"),
+            RowErrorKind::NonFinite => format!("'{name}' is not a finite number"),
+        }
+    }
+
+    /// Predicts one row without allocating: cells in [`Predictor::feature_names`] order.
+    pub fn predict_row(
+        &self,
+        row: &[Cell<'_>],
+        scratch: &mut Scratch,
+    ) -> Result<RowPrediction, RowError> {
+        let features = &self.encoder.features;
+        if row.len() != features.len() {
+            return Err(RowError {
+                feature: row.len(),
+                kind: RowErrorKind::WrongLength,
+            });
+        }
+        let Scratch {
+            a,
+            b,
+            input,
+            raw,
+            out_of_range,
+            unseen,
+        } = scratch;
+        let (mut extrapolated, mut any_unseen) = (false, false);
+        let mut k = 0;
+        for (i, (feature, cell)) in features.iter().zip(row).enumerate() {
+            let w = feature.width();
+            let slots = &mut raw[..w];
+            let outcome = feature
+                .encode_cell(&self.index.maps[i], self.encoder.unseen, *cell, slots)
+                .map_err(|kind| RowError { feature: i, kind })?;
+            unseen[i] = outcome.unseen;
+            any_unseen |= outcome.unseen;
+            out_of_range[i] = match (outcome.value, feature.range()) {
+                (Some(v), Some((min, max))) => {
+                    let slack = self.margin * (max - min).max(f64::EPSILON * min.abs());
+                    v < min - slack || v > max + slack
+                }
+                _ => false,
+            };
+            extrapolated |= out_of_range[i];
+            for (j, &v) in slots.iter().enumerate() {
+                // NaN marks "at the training mean" (an unseen category without a pooled level).
+                a[k + j] = if v.is_nan() {
+                    0.0
+                } else {
+                    ((v - self.inputs.mean[k + j]) / self.inputs.sd[k + j]) as f32
+                };
+            }
+            k += w;
+        }
+        input[..k].copy_from_slice(&a[..k]);
+        let mut sum = 0.0_f64;
+        for steps in &self.members {
+            a[..k].copy_from_slice(&input[..k]);
+            sum += f64::from(crate::kernels::with_simd(|| run_steps(steps, a, b, k)));
+        }
+        let out = sum / self.members.len() as f64;
+        let scaled = out * self.target.sd[0] + self.target.mean[0];
+        let (lower, upper) = match &self.interval {
+            Some(c) => {
+                let (lo, hi) = c.around(scaled);
+                (
+                    Some(self.encoder.decode_target(lo)),
+                    Some(self.encoder.decode_target(hi)),
+                )
+            }
+            None => (None, None),
+        };
+        Ok(RowPrediction {
+            value: self.encoder.decode_target(scaled),
+            lower,
+            upper,
+            extrapolated,
+            unseen: any_unseen,
+        })
+    }
+
+    /// Predicts every row of a table (columns found by name; extra columns ignored). Each row
+    /// gets its prediction or its error message, and the names of extrapolated features.
+    pub fn predict_table(&self, table: &Table) -> Result<Vec<TableRow>, DataError> {
+        let columns: Vec<&Column> = self
+            .encoder
+            .features
+            .iter()
+            .map(|f| table.column(f.name()))
+            .collect::<Result<_, _>>()?;
+        let mut scratch = self.scratch();
+        let mut row: Vec<Cell<'_>> = Vec::with_capacity(columns.len());
+        let mut out = Vec::with_capacity(table.rows());
+        for r in 0..table.rows() {
+            row.clear();
+            row.extend(columns.iter().map(|c| c.cell(r)));
+            out.push(match self.predict_row(&row, &mut scratch) {
+                Ok(p) => TableRow {
+                    line: table.lines[r],
+                    value: Some(p.value),
+                    lower: p.lower,
+                    upper: p.upper,
+                    out_of_range: self
+                        .encoder
+                        .features
+                        .iter()
+                        .zip(scratch.out_of_range())
+                        .filter(|(_, &o)| o)
+                        .map(|(f, _)| f.name().to_string())
+                        .collect(),
+                    unseen: self
+                        .encoder
+                        .features
+                        .iter()
+                        .zip(scratch.unseen())
+                        .filter(|(_, &u)| u)
+                        .map(|(f, _)| f.name().to_string())
+                        .collect(),
+                    error: None,
+                },
+                Err(e) => TableRow {
+                    line: table.lines[r],
+                    value: None,
+                    lower: None,
+                    upper: None,
+                    out_of_range: Vec::new(),
+                    unseen: Vec::new(),
+                    error: Some(self.explain(&e)),
+                },
+            });
+        }
+        Ok(out)
+    }
+}
+
+/// The inference steps of one network.
+fn steps_of(net: &crate::nn::network::Network<f32>) -> Vec<Step> {
+    let params = net.params();
+    let mut steps = Vec::new();
+    let mut offset = 0;
+    for spec in net.specs() {
+        match spec {
+            LayerSpec::Affine {
+                inputs, outputs, ..
+            } => {
+                let w = inputs * outputs;
+                steps.push(Step::Affine {
+                    inputs,
+                    outputs,
+                    weights: params[offset..offset + w].to_vec(),
+                    bias: params[offset + w..offset + w + outputs].to_vec(),
+                });
+                offset += w + outputs;
+            }
+            LayerSpec::Activation {
+                width,
+                activation: Activation::Prelu { shared, .. },
+            } => {
+                let n = if shared { 1 } else { width };
+                let slopes = &params[offset..offset + n];
+                steps.push(Step::Prelu(if shared {
+                    vec![slopes[0]; width]
+                } else {
+                    slopes.to_vec()
+                }));
+                offset += n;
+            }
+            LayerSpec::Activation { activation, .. } => steps.push(Step::Act(activation)),
+            LayerSpec::Dropout { .. } => {}
+        }
+    }
+    steps
+}
+
+/// One network's layers on one encoded row of `width` values in `a` (`b` is the second
+/// buffer); returns the scaled output.
+#[inline(always)]
+fn run_steps(steps: &[Step], a: &mut [f32], b: &mut [f32], mut width: usize) -> f32 {
+    let (mut cur, mut next) = (a, b);
+    for step in steps {
+        match step {
+            Step::Affine {
+                inputs,
+                outputs,
+                weights,
+                bias,
+            } => {
+                affine_row(&cur[..*inputs], weights, bias, &mut next[..*outputs]);
+                width = *outputs;
+            }
+            Step::Act(act) => act.apply(&cur[..width], &mut next[..width]),
+            Step::Prelu(slopes) => next[..width]
+                .iter_mut()
+                .zip(&cur[..width])
+                .zip(slopes)
+                .for_each(|((o, &v), &s)| *o = leaky(v, s)),
+        }
+        std::mem::swap(&mut cur, &mut next);
+    }
+    cur[0]
+}
+
+/// The prediction for one table row.
+#[derive(Clone, Debug, PartialEq)]
+pub struct TableRow {
+    /// File line of the row.
+    pub line: u64,
+    /// The prediction, if the row could be encoded.
+    pub value: Option<f64>,
+    /// The prediction interval, if the model has one.
+    pub lower: Option<f64>,
+    /// Upper end of the interval.
+    pub upper: Option<f64>,
+    /// Features outside their training range by more than the margin.
+    pub out_of_range: Vec<String>,
+    /// Features with a category never seen in training (predicted through the pooled level).
+    pub unseen: Vec<String>,
+    /// Why the row could not be predicted.
+    pub error: Option<String>,
+}
+
+/// out = x·W + bias for one row (W is inputs × outputs, row-major): a dot product with eight
+/// partial sums for a single output, else one scaled row of W added per input.
+#[inline(always)]
+fn affine_row(x: &[f32], weights: &[f32], bias: &[f32], out: &mut [f32]) {
+    if out.len() == 1 {
+        let mut acc = [0.0_f32; 8];
+        let (xs, ws) = (x.chunks_exact(8), weights.chunks_exact(8));
+        let tail: f32 = xs
+            .remainder()
+            .iter()
+            .zip(ws.remainder())
+            .map(|(a, b)| a * b)
+            .sum();
+        for (u, v) in xs.zip(ws) {
+            for l in 0..8 {
+                acc[l] += u[l] * v[l];
+            }
+        }
+        out[0] = bias[0] + tail + acc.iter().sum::<f32>();
+        return;
+    }
+    out.copy_from_slice(bias);
+    let width = out.len();
+    for (&xi, row) in x.iter().zip(weights.chunks_exact(width)) {
+        out.iter_mut().zip(row).for_each(|(o, &w)| *o += xi * w);
+    }
+}
