@@ -29,7 +29,7 @@ fn step(c: &mut Criterion, name: &str, widths: &[usize], batch: usize) {
     let mut adam = Adam::new(1e-3);
     c.bench_function(&format!("train_step_{name}"), |b| {
         b.iter(|| {
-            net.zero_grads();
+            net.clear_gradients();
             let out = net.forward(x.view(), Pass::Train).unwrap();
             Loss::Mse
                 .gradient_into(out, y.view(), grad.view_mut())

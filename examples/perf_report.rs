@@ -122,7 +122,7 @@ fn training_step(case: &str, widths: &[usize], batch: usize, iters: usize) -> f6
     let mut grad = Array2::<f32>::zeros((batch, 1));
     let mut adam = Adam::new(1e-3);
     let (step, allocs) = measure(iters, 15, || {
-        net.zero_grads();
+        net.clear_gradients();
         let out = net.forward(x.view(), Pass::Train).expect("shapes");
         Loss::Mse
             .gradient_into(out, y.view(), grad.view_mut())

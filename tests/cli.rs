@@ -376,3 +376,105 @@ fn compare_writes_table_report_and_chart_and_shards_merge() {
     let err = fails(&bad);
     assert!(err.contains("3/3"), "{err}");
 }
+
+/// Debug forms of Rust values that must never reach a user (issue: our own words).
+const DEBUG_FORMS: [&str; 12] = [
+    "Some(",
+    "None",
+    " { ",
+    "EarlyStop",
+    "EpochLimit",
+    "NoProgress",
+    "draw:",
+    "fan:",
+    "Normal",
+    "Uniform",
+    "Lbfgs",
+    "[64, 64]",
+];
+
+fn assert_plain(what: &str, text: &str) {
+    for form in DEBUG_FORMS {
+        assert!(
+            !text.contains(form),
+            "{what} shows a debug form '{form}':\n{text}"
+        );
+    }
+}
+
+#[test]
+fn no_screen_shows_a_debug_form() {
+    // Written before this change, `train` and `inspect` printed "stopped: EarlyStop" and
+    // "initialized He { draw: Normal, fan: In, slope: 0.0 }".
+    let m = model();
+    let o = relume(&["inspect", "--model", &m]);
+    assert!(o.status.success());
+    let inspect = String::from_utf8_lossy(&o.stdout).to_string();
+    assert!(
+        inspect.contains("initialized he") && inspect.contains("stopped early"),
+        "{inspect}"
+    );
+    assert_plain("inspect", &inspect);
+    let o = relume(&["evaluate", "--model", &m, "--data", DEMO]);
+    assert_plain("evaluate", &String::from_utf8_lossy(&o.stdout));
+    // A small table through train and compare (and the tiny-table L-BFGS path).
+    let mut csv = String::from("x,kind,y\n");
+    for i in 0..60 {
+        csv += &format!("{},{},{}\n", i % 7, ["a", "b"][i % 2], (i % 7) * 2 + i % 2);
+    }
+    let data = write("plain.csv", &csv);
+    let o = relume(&[
+        "train",
+        "--data",
+        &data,
+        "--target",
+        "y",
+        "--out",
+        &path("plain.json"),
+        "--members",
+        "2",
+    ]);
+    let train = String::from_utf8_lossy(&o.stderr).to_string();
+    assert!(o.status.success(), "{train}");
+    assert_plain("train", &train);
+    let table = path("plain.md");
+    let o = relume(&[
+        "compare",
+        "--data",
+        &data,
+        "--target",
+        "y",
+        "--activations",
+        "relu,tanh",
+        "--seeds",
+        "2",
+        "--epochs",
+        "30",
+        "--table",
+        &table,
+    ]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    assert_plain("compare", &String::from_utf8_lossy(&o.stderr));
+    assert_plain("compare", &String::from_utf8_lossy(&o.stdout));
+    assert_plain("compare table", &std::fs::read_to_string(&table).unwrap());
+}
+
+#[test]
+fn printed_predictions_read_back_to_the_f32_the_model_produced() {
+    // Written before this change, predict printed 15-16 digits of an f64 (38.4831616806148).
+    let m = model();
+    let out = path("roundtrip.csv");
+    let o = relume(&["predict", "--model", &m, "--data", DEMO, "--out", &out]);
+    assert!(o.status.success());
+    let predictor = relume::Predictor::load(Path::new(&m)).unwrap();
+    let table = relume::Table::read_path(Path::new(DEMO), &Default::default()).unwrap();
+    let rows = predictor.predict_table(&table).unwrap();
+    let text = std::fs::read_to_string(&out).unwrap();
+    for (line, row) in text.lines().skip(1).zip(&rows) {
+        let fields: Vec<&str> = line.split(',').collect();
+        let printed: f32 = fields[1].parse().unwrap();
+        assert_eq!(printed, row.value.unwrap() as f32, "{line}");
+        assert!(fields[1].len() <= 10, "not the shortest form: {line}");
+        assert_eq!(fields[2].parse::<f32>().unwrap(), row.lower.unwrap() as f32);
+    }
+}

@@ -18,7 +18,7 @@ fn fit_sine(hidden: usize, steps: usize, seed: u64) -> f64 {
     for step in 0..steps {
         // Linear decay to 1% of the starting rate over the run.
         adam.set_learning_rate(1e-2 * (1.0 - 0.99 * step as f64 / steps as f64));
-        net.zero_grads();
+        net.clear_gradients();
         let out = net.forward(x.view(), Pass::Train).unwrap();
         Loss::Mse
             .gradient_into(out, y.view(), grad.view_mut())

@@ -156,7 +156,7 @@ fn same_seed_same_network_bit_for_bit() {
 }
 
 #[test]
-fn gradients_accumulate_until_zeroed() {
+fn gradients_accumulate_until_cleared() {
     let mut net = NetworkPlan::new(3, &[4], Activation::Gelu)
         .build::<f64>(2)
         .unwrap();
@@ -169,8 +169,38 @@ fn gradients_accumulate_until_zeroed() {
     for (twice, once) in net.grads().iter().zip(&once) {
         assert!((twice - 2.0 * once).abs() <= 1e-12 * once.abs().max(1.0));
     }
-    net.zero_grads();
+    net.clear_gradients();
     assert!(net.grads().iter().all(|&v| v == 0.0));
+}
+
+#[test]
+fn loss_gradients_match_central_differences_of_the_loss() {
+    // d loss / d θ against the central difference (L(θ+h) − L(θ−h)) / 2h, in f64.
+    let mut net = NetworkPlan::new(3, &[5], Activation::Gelu)
+        .build::<f64>(4)
+        .unwrap();
+    let x = normal_matrix(6, 3, 2);
+    let y = normal_matrix(6, 1, 3);
+    // Stale gradients must not leak into the result.
+    net.grads_mut().fill(7.0);
+    let loss = net.loss_gradients(Loss::Mse, x.view(), y.view()).unwrap();
+    let grads = net.grads().to_vec();
+    assert!(loss > 0.0);
+    for k in 0..net.param_count() {
+        let h = 1e-5;
+        let at = |net: &mut relume::Network<f64>, v: f64| {
+            net.params_mut()[k] = v;
+            let out = net.forward(x.view(), Pass::Train).unwrap().to_owned();
+            Loss::Mse.value(out.view(), y.view()).unwrap()
+        };
+        let p = net.params()[k];
+        let numeric = (at(&mut net, p + h) - at(&mut net, p - h)) / (2.0 * h);
+        at(&mut net, p);
+        assert!(
+            (numeric - grads[k]).abs() <= 1e-6 * numeric.abs().max(1.0),
+            "{k}"
+        );
+    }
 }
 
 #[test]

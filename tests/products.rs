@@ -182,7 +182,7 @@ fn products_split_over_two_threads_match_one_thread() {
         let mut grad = Array2::<f32>::zeros((512, 1));
         let mut adam = relume::Adam::new(1e-3);
         for _ in 0..5 {
-            net.zero_grads();
+            net.clear_gradients();
             let out = net
                 .forward(x.view(), relume::nn::layer::Pass::Train)
                 .unwrap();

@@ -470,9 +470,15 @@ fn train(a: TrainArgs) -> Result<(), Failure> {
     );
     let config = recipe.config_for(table.rows());
     eprintln!(
-        "training: {} {:?} units, {} optimizer, up to {} epochs, validation {:.0}%",
+        "training: {} hidden layers of {} units, {}, {} optimizer, up to {} epochs, validation {:.0}%",
+        recipe.hidden.len(),
+        recipe
+            .hidden
+            .iter()
+            .map(usize::to_string)
+            .collect::<Vec<_>>()
+            .join(", "),
         recipe.activation_for(table.rows()),
-        recipe.hidden,
         config.optimizer.name(),
         config.epochs,
         100.0 * config.val_frac
@@ -513,8 +519,11 @@ fn train(a: TrainArgs) -> Result<(), Failure> {
     bar.finish_and_clear();
     let s = &model.summary;
     eprintln!(
-        "trained {} epochs on {} rows (best epoch {}, stopped: {:?})",
-        s.epochs_run, s.train_rows, s.best_epoch, s.stop
+        "trained {} epochs on {} rows (best epoch {}; {})",
+        s.epochs_run,
+        s.train_rows,
+        s.best_epoch,
+        s.stop.describe(config.patience)
     );
     print_ensemble(s, model.interval.as_ref(), |line| eprintln!("{line}"));
     if let Some(v) = &s.validation {
@@ -630,6 +639,11 @@ fn print_ensemble(
                 .to_string(),
         ),
     }
+}
+
+/// A prediction of an f32 network: the shortest text that reads back to the same f32.
+fn shortest_f32(value: f64) -> String {
+    (value as f32).to_string()
 }
 
 /// One line per column: what it became and why.
@@ -777,7 +791,7 @@ fn predict(a: PredictArgs) -> Result<(), Failure> {
                 parts.join("; ")
             }
         };
-        let number = |v: Option<f64>| v.map_or(String::new(), |v| v.to_string());
+        let number = |v: Option<f64>| v.map_or(String::new(), shortest_f32);
         text += &format!(
             "{},{},{},{},{},{}\n",
             key_values.join(","),
@@ -928,7 +942,7 @@ fn inspect(a: InspectArgs) -> Result<(), Failure> {
                 outputs,
                 weight_init,
                 ..
-            } => println!("  {i}: affine {inputs} -> {outputs} (initialized {weight_init:?})"),
+            } => println!("  {i}: affine {inputs} -> {outputs} (initialized {weight_init})"),
             LayerSpec::Activation { width, activation } => {
                 println!("  {i}: {activation} on {width} units")
             }
@@ -960,8 +974,12 @@ fn inspect(a: InspectArgs) -> Result<(), Failure> {
     );
     let s = &model.summary;
     println!(
-        "training: {} rows, {} validation rows, {} epochs, best epoch {}, stopped: {:?}",
-        s.train_rows, s.val_rows, s.epochs_run, s.best_epoch, s.stop
+        "training: {} rows, {} validation rows, {} epochs, best epoch {}; {}",
+        s.train_rows,
+        s.val_rows,
+        s.epochs_run,
+        s.best_epoch,
+        s.stop.describe(None)
     );
     if let Some(v) = &s.validation {
         println!(

@@ -361,7 +361,10 @@ impl<F: Scalar> Monitor<F> {
     fn check_thresholds(&mut self, epoch: usize, layers: &[LayerStats], jump: f64) {
         let c = self.config;
         let mut found = Vec::new();
-        for s in layers {
+        // Hidden layers are numbered from 1 in every output (the order of their activation
+        // layers), the same numbering `train`, `inspect` and the chart use.
+        for (ordinal, s) in layers.iter().enumerate() {
+            let hidden = ordinal + 1;
             let at = |kind, message: String, remedy: &str| Warning {
                 epoch,
                 layer: Some(s.layer),
@@ -373,8 +376,8 @@ impl<F: Scalar> Monitor<F> {
                 found.push(at(
                     WarningKind::DeadUnits,
                     format!(
-                        "layer {} ({}): {:.0}% of {} units are dead (zero for every probe row)",
-                        s.layer,
+                        "hidden layer {hidden} ({}): {:.0}% of {} units are dead (zero for every \
+                         probe row)",
                         s.activation,
                         100.0 * s.dead_fraction,
                         s.units
@@ -387,8 +390,8 @@ impl<F: Scalar> Monitor<F> {
                 found.push(at(
                     WarningKind::UpdateTooLarge,
                     format!(
-                        "layer {}: updates are {:.1e} of the weights per step",
-                        s.layer, s.update_ratio
+                        "hidden layer {hidden}: updates are {:.1e} of the weights per step",
+                        s.update_ratio
                     ),
                     "lower the learning rate or clip gradients (about 1e-3 is healthy)",
                 ));
@@ -397,8 +400,8 @@ impl<F: Scalar> Monitor<F> {
                 found.push(at(
                     WarningKind::UpdateTooSmall,
                     format!(
-                        "layer {}: updates are only {:.1e} of the weights per step",
-                        s.layer, s.update_ratio
+                        "hidden layer {hidden}: updates are only {:.1e} of the weights per step",
+                        s.update_ratio
                     ),
                     "raise the learning rate, or check for dead units and vanishing gradients",
                 ));
@@ -409,8 +412,7 @@ impl<F: Scalar> Monitor<F> {
                 found.push(at(
                     WarningKind::Saturation,
                     format!(
-                        "layer {} ({}): {:.0}% of outputs are saturated",
-                        s.layer,
+                        "hidden layer {hidden} ({}): {:.0}% of outputs are saturated",
                         s.activation,
                         100.0 * s.saturation_fraction.unwrap_or(0.0)
                     ),

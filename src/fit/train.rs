@@ -191,6 +191,22 @@ pub enum StopReason {
     NoProgress,
 }
 
+impl StopReason {
+    /// Why training stopped, in words (`patience`: the early-stopping patience in epochs).
+    pub fn describe(&self, patience: Option<usize>) -> String {
+        match self {
+            StopReason::EpochLimit => "reached the epoch limit".to_string(),
+            StopReason::EarlyStop => match patience {
+                Some(p) => format!("stopped early: no better validation loss for {p} epochs"),
+                None => "stopped early: the validation loss stopped improving".to_string(),
+            },
+            StopReason::Observer => "stopped by an observer".to_string(),
+            StopReason::Converged => "converged: the gradient fell below its tolerance".to_string(),
+            StopReason::NoProgress => "stopped: no step lowers the objective further".to_string(),
+        }
+    }
+}
+
 /// A divergence the guard recovered from.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct Rollback {
@@ -655,7 +671,7 @@ impl<'a, F: Scalar> Run<'a, F> {
         lr: f64,
     ) -> Result<(f64, f64), String> {
         let objective = &self.config.objective;
-        net.zero_grads();
+        net.clear_gradients();
         let out = net.forward(x, Pass::Train).map_err(|e| e.to_string())?;
         let loss = objective.loss.value(out, y).map_err(|e| e.to_string())?;
         if !loss.is_finite() {
@@ -756,7 +772,7 @@ impl<F: Scalar> LbfgsProblem for FullBatch<'_, '_, '_, '_, '_, F> {
         for (p, v) in net.params_mut().iter_mut().zip(x) {
             *p = F::of(*v);
         }
-        net.zero_grads();
+        net.clear_gradients();
         let objective = &run.config.objective;
         let (xs, ys) = (run.split.x.view(), run.split.y.view());
         let Ok(out) = net.forward(xs, Pass::Train) else {

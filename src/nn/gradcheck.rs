@@ -144,7 +144,7 @@ fn run_check(
         pass: options.pass,
     };
     // Analytic gradients.
-    net.zero_grads();
+    net.clear_gradients();
     let out = net.forward(x, target.pass)?.to_owned();
     let mut top = Array2::zeros(out.dim());
     objective

@@ -283,3 +283,37 @@ fn householder_q(a: &mut [f64], m: usize, n: usize) -> Vec<f64> {
     }
     q
 }
+
+/// The name the command accepts (`he`, `he-uniform`, `glorot`, ...), with the leaky gain's
+/// slope or the constant when they are not the defaults.
+impl std::fmt::Display for Init {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match *self {
+            Init::He { draw, fan, slope } => {
+                let name = match (draw, fan) {
+                    (Draw::Normal, Fan::In) => "he",
+                    (Draw::Uniform, Fan::In) => "he-uniform",
+                    (Draw::Normal, Fan::Out) => "he-fan-out",
+                    (Draw::Uniform, Fan::Out) => "he-uniform-fan-out",
+                };
+                if slope == 0.0 {
+                    write!(f, "{name}")
+                } else {
+                    write!(f, "{name} (leaky gain, slope {slope})")
+                }
+            }
+            Init::Glorot {
+                draw: Draw::Uniform,
+            } => write!(f, "glorot"),
+            Init::Glorot { draw: Draw::Normal } => write!(f, "glorot-normal"),
+            Init::Lecun { draw: Draw::Normal } => write!(f, "lecun"),
+            Init::Lecun {
+                draw: Draw::Uniform,
+            } => write!(f, "lecun-uniform"),
+            Init::Orthogonal { gain } if gain == 1.0 => write!(f, "orthogonal"),
+            Init::Orthogonal { gain } => write!(f, "orthogonal (gain {gain})"),
+            Init::Constant { value } if value == 0.0 => write!(f, "zero"),
+            Init::Constant { value } => write!(f, "constant {value}"),
+        }
+    }
+}

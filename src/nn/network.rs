@@ -102,7 +102,7 @@ impl<F: Scalar> Network<F> {
             layer.init_params(&mut self.params[span.clone()], &mut rng);
             layer.reseed(rng.next_u64());
         }
-        self.zero_grads();
+        self.clear_gradients();
     }
 
     /// Number of input columns.
@@ -162,8 +162,26 @@ impl<F: Scalar> Network<F> {
         (&self.params, &mut self.grads)
     }
 
+    /// The loss of `loss` on rows `x` → `y` in a training pass, with its gradient with respect
+    /// to every parameter left in [`Network::grads`] (earlier gradients are cleared first).
+    /// One call for what a training step needs before the optimizer moves the parameters.
+    pub fn loss_gradients(
+        &mut self,
+        loss: crate::nn::loss::Loss,
+        x: ArrayView2<'_, F>,
+        y: ArrayView2<'_, F>,
+    ) -> Result<F, ShapeError> {
+        self.clear_gradients();
+        let out = self.forward(x, crate::nn::layer::Pass::Train)?;
+        let value = loss.value(out, y)?;
+        let mut grad = Array2::zeros(out.dim());
+        loss.gradient_into(out, y, grad.view_mut())?;
+        self.backward_params(grad.view())?;
+        Ok(value)
+    }
+
     /// Sets every gradient to zero.
-    pub fn zero_grads(&mut self) {
+    pub fn clear_gradients(&mut self) {
         let grads = &mut self.grads[..];
         crate::kernels::for_chunks([grads], crate::kernels::SPLIT_ELEMENTS, |_, [g]| {
             g.fill(F::zero())

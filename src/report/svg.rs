@@ -239,7 +239,12 @@ pub fn plot_run(report: &RunReport, options: PlotOptions) -> String {
     } else {
         "linear"
     };
-    loss.frame(&mut svg, "Loss per epoch", &format!("loss ({scale})"));
+    // The loss is computed on standardized targets (z-scores of the training rows).
+    loss.frame(
+        &mut svg,
+        "Loss per epoch (on the standardized target)",
+        &format!("loss, target in sd units ({scale})"),
+    );
     let train: Vec<(f64, f64)> = report
         .epochs
         .iter()
@@ -294,8 +299,8 @@ pub fn plot_run(report: &RunReport, options: PlotOptions) -> String {
             .iter()
             .find_map(|e| e.layers.get(k))
             .map_or_else(
-                || format!("hidden {k}"),
-                |l| format!("layer {} ({})", l.layer, l.activation),
+                || format!("hidden layer {}", k + 1),
+                |l| format!("hidden layer {} ({})", k + 1, l.activation),
             );
         layer_entries.push((name, colour, false));
     }
