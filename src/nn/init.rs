@@ -310,9 +310,9 @@ impl std::fmt::Display for Init {
             Init::Lecun {
                 draw: Draw::Uniform,
             } => write!(f, "lecun-uniform"),
-            Init::Orthogonal { gain } if gain == 1.0 => write!(f, "orthogonal"),
+            Init::Orthogonal { gain: 1.0 } => write!(f, "orthogonal"),
             Init::Orthogonal { gain } => write!(f, "orthogonal (gain {gain})"),
-            Init::Constant { value } if value == 0.0 => write!(f, "zero"),
+            Init::Constant { value: 0.0 } => write!(f, "zero"),
             Init::Constant { value } => write!(f, "constant {value}"),
         }
     }
