@@ -301,7 +301,7 @@ fn the_chart_draws_both_losses_and_every_layer() {
             4,
             "train, validation, two layers"
         );
-        assert!(svg.contains("layer 1 (relu)") && svg.contains("layer 3 (relu)"));
+        assert!(svg.contains("hidden layer 1 (relu)") && svg.contains("hidden layer 2 (relu)"));
         assert!(svg.contains("validation") && svg.contains("best epoch"));
     }
     if let Ok(dir) = std::env::var("RELUME_PLOT_DIR") {

@@ -132,6 +132,32 @@ struct TableArgs {
     /// Read NaN / inf cells as empty instead of refusing them.
     #[arg(long)]
     allow_non_finite: bool,
+    /// Field separator: comma, semicolon or tab (default: detected from the header line).
+    #[arg(long, value_name = "SEP")]
+    separator: Option<SeparatorArg>,
+    /// Read "6,520" as 6.52 (decimal comma) where it could also be 6520.
+    #[arg(long)]
+    decimal_comma: bool,
+}
+
+#[derive(clap::ValueEnum, Clone, Copy, Debug)]
+enum SeparatorArg {
+    #[value(name = ",", alias = "comma")]
+    Comma,
+    #[value(name = ";", alias = "semicolon")]
+    Semicolon,
+    #[value(name = "tab")]
+    Tab,
+}
+
+impl SeparatorArg {
+    fn byte(self) -> u8 {
+        match self {
+            SeparatorArg::Comma => b',',
+            SeparatorArg::Semicolon => b';',
+            SeparatorArg::Tab => b'\t',
+        }
+    }
 }
 
 /// Which columns to model, and how.
@@ -208,7 +234,8 @@ struct TrainArgs {
     /// Hidden layer widths (default 64,64).
     #[arg(long, value_delimiter = ',', value_name = "64,64")]
     layers: Option<Vec<usize>>,
-    /// Hidden activation (default: gelu up to 1000 training rows, relu above).
+    /// Hidden activation (default: gelu when L-BFGS trains, which it does for tables up to
+    /// 1000 training rows unless --optimizer says otherwise; relu for every other optimizer).
     #[arg(long, value_name = "relu")]
     activation: Option<Activation>,
     /// Weight initializer (default: he for rectifiers, lecun for selu, glorot for tanh/sigmoid).
@@ -219,7 +246,7 @@ struct TrainArgs {
     #[arg(long, value_name = "adam")]
     optimizer: Option<OptimizerChoice>,
     /// Learning rate (default 3e-3 for adam).
-    #[arg(long, value_name = "X")]
+    #[arg(long, value_name = "X", allow_negative_numbers = true)]
     lr: Option<f64>,
     /// Most epochs (L-BFGS: iterations).
     #[arg(long, value_name = "N")]
@@ -228,19 +255,19 @@ struct TrainArgs {
     #[arg(long, value_name = "N")]
     batch: Option<usize>,
     /// L1 penalty on weights.
-    #[arg(long, value_name = "X")]
+    #[arg(long, value_name = "X", allow_negative_numbers = true)]
     l1: Option<f64>,
     /// L2 penalty on weights (default 3e-4 above 1000 rows, 0 below).
-    #[arg(long, value_name = "X")]
+    #[arg(long, value_name = "X", allow_negative_numbers = true)]
     l2: Option<f64>,
     /// Fraction of rows held out for early stopping and validation metrics (default 0.2).
-    #[arg(long, value_name = "0.2")]
+    #[arg(long, value_name = "0.2", allow_negative_numbers = true)]
     val_frac: Option<f64>,
     /// Epochs without validation improvement before stopping.
     #[arg(long, value_name = "N")]
     patience: Option<usize>,
     /// Seed of initialization, split and shuffling (default 0).
-    #[arg(long, value_name = "N")]
+    #[arg(long, value_name = "N", allow_negative_numbers = true)]
     seed: Option<u64>,
     /// Ensemble members: networks trained with different seeds whose predictions are averaged
     /// (default 5; 1 gives a single network).
@@ -340,6 +367,11 @@ fn io_failure(what: &Path, e: std::io::Error) -> Failure {
 
 fn main() -> ExitCode {
     std::panic::set_hook(Box::new(|info| {
+        // `println!` panics when the reader of standard output has gone (`| head`): that is
+        // the reader's choice, not an error.
+        if info.to_string().contains("Broken pipe") {
+            std::process::exit(0);
+        }
         eprintln!("relume: internal error: {info}");
     }));
     let cli = Cli::parse();
@@ -390,6 +422,8 @@ fn read_table(args: &TableArgs, model_text: &[String]) -> Result<Table, Failure>
         text_columns: args.text_columns.clone(),
         allow_non_finite: args.allow_non_finite,
         model_text_columns: model_text.to_vec(),
+        separator: args.separator.map(|s| s.byte()),
+        decimal_comma: args.decimal_comma,
     };
     Ok(if args.data == "-" {
         Table::read(std::io::stdin().lock(), "stdin", &options)?
@@ -413,7 +447,65 @@ fn run_progress() -> ProgressBar {
     bar
 }
 
+/// Refuses an output path that cannot be written (missing folder, a folder itself, no write
+/// permission) before any work is done, so a finished run is never thrown away.
+fn check_output(option: &str, path: &Path) -> Result<(), Failure> {
+    let refuse = |why: String| Failure::User(format!("{option} {}: {why}", path.display()));
+    if path.as_os_str().is_empty() {
+        return Err(refuse("the path is empty".to_string()));
+    }
+    if path.is_dir() || path.as_os_str().to_string_lossy().ends_with('/') {
+        return Err(refuse("is a folder; give a file name".to_string()));
+    }
+    let parent = match path.parent() {
+        Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
+        _ => PathBuf::from("."),
+    };
+    if !parent.is_dir() {
+        return Err(refuse(format!(
+            "the folder {} does not exist",
+            parent.display()
+        )));
+    }
+    // Try a file beside it: the same check the atomic save's temporary file will need.
+    let probe = parent.join(format!(".relume-write-check-{}", std::process::id()));
+    match std::fs::File::create(&probe) {
+        Ok(_) => {
+            let _ = std::fs::remove_file(&probe);
+        }
+        Err(e) => return Err(refuse(format!("cannot write in {}: {e}", parent.display()))),
+    }
+    if path.exists() && std::fs::OpenOptions::new().append(true).open(path).is_err() {
+        return Err(refuse("the file exists and cannot be replaced".to_string()));
+    }
+    Ok(())
+}
+
+/// Checks every output path given.
+fn check_outputs(paths: &[(&str, Option<&Path>)]) -> Result<(), Failure> {
+    for (option, path) in paths {
+        if let Some(p) = path {
+            check_output(option, p)?;
+        }
+    }
+    let given: Vec<&Path> = paths.iter().filter_map(|(_, p)| *p).collect();
+    for (i, p) in given.iter().enumerate() {
+        if given[..i].contains(p) {
+            return Err(Failure::User(format!(
+                "{} is given for two outputs",
+                p.display()
+            )));
+        }
+    }
+    Ok(())
+}
+
 fn train(a: TrainArgs) -> Result<(), Failure> {
+    check_outputs(&[
+        ("--out", Some(a.out.as_path())),
+        ("--report", a.report.as_deref()),
+        ("--plot", a.plot.as_deref()),
+    ])?;
     if let Some(n) = a.threads {
         relume::kernels::set_threads(usize::from(n));
     }
@@ -469,6 +561,12 @@ fn train(a: TrainArgs) -> Result<(), Failure> {
         a.columns.target
     );
     let config = recipe.config_for(table.rows());
+    if config.optimizer.is_full_batch() && (a.lr.is_some() || a.batch.is_some()) {
+        eprintln!(
+            "note: --lr and --batch do not apply: L-BFGS trains this table (chosen for tables \
+             up to 1000 training rows); add --optimizer adam to use them"
+        );
+    }
     eprintln!(
         "training: {} hidden layers of {} units, {}, {} optimizer, up to {} epochs, validation {:.0}%",
         recipe.hidden.len(),
@@ -536,6 +634,9 @@ fn train(a: TrainArgs) -> Result<(), Failure> {
             ("val_mae".to_string(), v.mae),
             ("val_r2".to_string(), v.r2),
         ];
+    }
+    for w in &s.warnings {
+        eprintln!("warning: {w}");
     }
     for (k, dead) in s.dead_fractions.iter().enumerate() {
         if *dead > 0.0 {
@@ -739,6 +840,7 @@ fn cell_text(table: &Table, column: &str, row: usize) -> Result<String, Failure>
 }
 
 fn predict(a: PredictArgs) -> Result<(), Failure> {
+    check_outputs(&[("--out", a.out.as_deref())])?;
     let predictor = Predictor::load(&a.model)?;
     let table = read_table(&a.table, &predictor.encoder().text_columns())?;
     for k in &a.key {
@@ -835,6 +937,7 @@ fn predict(a: PredictArgs) -> Result<(), Failure> {
 }
 
 fn evaluate(a: EvaluateArgs) -> Result<(), Failure> {
+    check_outputs(&[("--report", a.report.as_deref())])?;
     let predictor = Predictor::load(&a.model)?;
     let table = read_table(&a.table, &predictor.encoder().text_columns())?;
     let encoder = predictor.encoder();
@@ -988,6 +1091,9 @@ fn inspect(a: InspectArgs) -> Result<(), Failure> {
         );
     }
     print_ensemble(s, model.interval.as_ref(), |line| println!("{line}"));
+    for w in &s.warnings {
+        println!("warning: {w}");
+    }
     for (k, dead) in s.dead_fractions.iter().enumerate() {
         println!(
             "hidden layer {}: {:.1}% dead units at the end of training",
@@ -1036,6 +1142,11 @@ fn write_outputs(
 }
 
 fn compare(a: CompareArgs) -> Result<(), Failure> {
+    check_outputs(&[
+        ("--report", a.outputs.report.as_deref()),
+        ("--table", a.outputs.table_out.as_deref()),
+        ("--plot", a.outputs.plot.as_deref()),
+    ])?;
     if a.activations.is_empty() {
         return Err(Failure::User(
             "--activations needs at least one activation".to_string(),

@@ -27,6 +27,9 @@ pub(super) struct TableBuilder<'a> {
     names: Vec<String>,
     forced_text: Vec<bool>,
     allow_non_finite: bool,
+    decimal_comma: bool,
+    /// Per column: how its numbers are written, once decided.
+    styles: Vec<NumberStyle>,
     /// Raw rows of the typing sample, until the types are decided.
     sample: Vec<(u64, Vec<String>)>,
     /// Per column: numeric (true) or text, once decided.
@@ -59,6 +62,8 @@ impl<'a> TableBuilder<'a> {
             names,
             forced_text,
             allow_non_finite: options.allow_non_finite,
+            decimal_comma: options.decimal_comma,
+            styles: vec![NumberStyle::Plain; width],
             sample: Vec::new(),
             numeric: None,
             numbers: vec![Vec::new(); width],
@@ -136,8 +141,32 @@ impl<'a> TableBuilder<'a> {
                 }
             }
             let share = strays.len() as f64 / filled.max(1) as f64;
+            let commas = comma_style(
+                strays.iter().map(|(_, cell)| *cell),
+                self.sample.iter().map(|(_, cells)| cells[c].as_str()),
+                self.decimal_comma,
+            );
             if strays.is_empty() {
                 numeric.push(true);
+            } else if let Some(found) = commas {
+                match found {
+                    Ok(style) => {
+                        self.styles[c] = style;
+                        numeric.push(true);
+                    }
+                    Err(example) => {
+                        return Err(DataError::Cell {
+                            source_name: self.source.to_string(),
+                            line: strays[0].0,
+                            column: self.names[c].clone(),
+                            message: format!(
+                                "values like '{example}' could be thousands or a decimal comma; \
+                                 pass --decimal-comma to read them as decimals, or remove the \
+                                 thousands separators"
+                            ),
+                        });
+                    }
+                }
             } else if share > STRAY_SHARE {
                 numeric.push(false);
             } else {
@@ -190,7 +219,7 @@ impl<'a> TableBuilder<'a> {
                 self.numbers[c].push(f64::NAN);
                 continue;
             }
-            match parse_number(cell) {
+            match self.styles[c].parse(cell) {
                 Some(v) if v.is_finite() => self.numbers[c].push(v),
                 Some(_) if self.allow_non_finite => self.numbers[c].push(f64::NAN),
                 Some(_) => {
@@ -216,4 +245,89 @@ impl<'a> TableBuilder<'a> {
 /// An empty cell or a missing-value marker.
 fn is_empty(cell: &str) -> bool {
     cell.is_empty() || MISSING_MARKERS.contains(&cell)
+}
+
+/// How a column writes its numbers.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+enum NumberStyle {
+    /// Rust's grammar ("1e-3", "-0.5").
+    Plain,
+    /// A decimal comma ("0,5").
+    DecimalComma,
+    /// Comma thousands separators ("6,520", "1,234.5").
+    Thousands,
+}
+
+impl NumberStyle {
+    fn parse(self, cell: &str) -> Option<f64> {
+        match parse_number(cell) {
+            Some(v) => Some(v),
+            None => match self {
+                NumberStyle::Plain => None,
+                NumberStyle::DecimalComma if is_decimal_comma(cell) => {
+                    parse_number(&cell.replace(',', "."))
+                }
+                NumberStyle::Thousands if is_thousands(cell) => {
+                    parse_number(&cell.replace(',', ""))
+                }
+                _ => None,
+            },
+        }
+    }
+}
+
+/// `[+-]digits,digits`.
+fn is_decimal_comma(cell: &str) -> bool {
+    let body = cell.strip_prefix(['+', '-']).unwrap_or(cell);
+    match body.split_once(',') {
+        Some((a, b)) => {
+            !a.is_empty()
+                && !b.is_empty()
+                && a.bytes().all(|c| c.is_ascii_digit())
+                && b.bytes().all(|c| c.is_ascii_digit())
+        }
+        None => false,
+    }
+}
+
+/// `[+-]d{1,3}(,ddd)+(.digits)?`.
+fn is_thousands(cell: &str) -> bool {
+    let body = cell.strip_prefix(['+', '-']).unwrap_or(cell);
+    let (whole, fraction) = body.split_once('.').unwrap_or((body, ""));
+    if !fraction.bytes().all(|c| c.is_ascii_digit()) {
+        return false;
+    }
+    let groups: Vec<&str> = whole.split(',').collect();
+    groups.len() >= 2
+        && (1..=3).contains(&groups[0].len())
+        && groups.iter().all(|g| g.bytes().all(|c| c.is_ascii_digit()))
+        && groups[1..].iter().all(|g| g.len() == 3)
+}
+
+/// The comma style that reads every stray cell of a column as a number: None if some stray
+/// fits neither style, Err(example) if the strays fit both and nothing tells them apart.
+fn comma_style<'c>(
+    strays: impl Iterator<Item = &'c str> + Clone,
+    all: impl Iterator<Item = &'c str>,
+    decimal_comma: bool,
+) -> Option<Result<NumberStyle, String>> {
+    let mut strays = strays.peekable();
+    strays.peek()?;
+    let decimal = strays.clone().all(is_decimal_comma);
+    let thousands = strays.clone().all(is_thousands);
+    match (decimal, thousands) {
+        (false, false) => None,
+        (true, false) => Some(Ok(NumberStyle::DecimalComma)),
+        (false, true) => Some(Ok(NumberStyle::Thousands)),
+        (true, true) if decimal_comma => Some(Ok(NumberStyle::DecimalComma)),
+        (true, true) => {
+            // A plain number with a decimal point says the comma groups thousands.
+            let mut all = all;
+            if all.any(|c| c.contains('.') && parse_number(c).is_some()) {
+                Some(Ok(NumberStyle::Thousands))
+            } else {
+                Some(Err(strays.next().unwrap_or_default().to_string()))
+            }
+        }
+    }
 }

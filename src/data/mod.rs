@@ -90,6 +90,11 @@ pub struct ReadOptions {
     pub text_columns: Vec<String>,
     /// Treat "NaN", "inf" and friends as missing cells instead of refusing them.
     pub allow_non_finite: bool,
+    /// Field separator; None: detected from the header line (comma, semicolon or tab).
+    pub separator: Option<u8>,
+    /// Read numbers with a decimal comma ("0,5") even where a thousands separator would also
+    /// fit ("6,520" is then 6.52).
+    pub decimal_comma: bool,
     /// Columns read as text when the file has them (a model's categories and dates); unlike
     /// `text_columns`, a name the file lacks is not an error here.
     pub model_text_columns: Vec<String>,
@@ -129,11 +134,24 @@ impl Table {
         source: &str,
         options: &ReadOptions,
     ) -> Result<Table, DataError> {
+        // The separator: given, or the most frequent of comma, semicolon and tab in the header.
+        let mut reader = std::io::BufReader::new(reader);
+        let mut header = Vec::new();
+        std::io::BufRead::read_until(&mut reader, b'\n', &mut header).map_err(|e| {
+            DataError::Io {
+                source_name: source.to_string(),
+                message: format!("cannot read: {e}"),
+            }
+        })?;
+        let separator = options
+            .separator
+            .unwrap_or_else(|| detect_separator(&header));
         let mut csv = csv::ReaderBuilder::new()
             .has_headers(true)
+            .delimiter(separator)
             .trim(csv::Trim::All)
             .flexible(false)
-            .from_reader(reader);
+            .from_reader(std::io::Read::chain(&header[..], reader));
         let table_error = |message: String| DataError::Table {
             source_name: source.to_string(),
             message,
@@ -267,15 +285,37 @@ pub fn list_some<S: AsRef<str>>(items: impl IntoIterator<Item = S>, limit: usize
     }
 }
 
+/// The most frequent of comma, semicolon and tab outside quotes in a header line (comma on
+/// a tie or when there is none).
+fn detect_separator(header: &[u8]) -> u8 {
+    let mut counts = [0usize; 3];
+    let mut quoted = false;
+    for &b in header {
+        match b {
+            b'"' => quoted = !quoted,
+            b',' if !quoted => counts[0] += 1,
+            b';' if !quoted => counts[1] += 1,
+            b'\t' if !quoted => counts[2] += 1,
+            _ => {}
+        }
+    }
+    let best = (0..3).max_by_key(|&i| (counts[i], 3 - i)).unwrap_or(0);
+    if counts[best] == 0 {
+        b','
+    } else {
+        [b',', b';', b'\t'][best]
+    }
+}
+
 /// A hint when a one-column header looks like it holds several names split by another
 /// separator.
 fn separator_hint(columns: &[Column]) -> &'static str {
     match columns {
         [only] if only.name.contains(';') => {
-            " (the header looks semicolon-separated: relume reads comma-separated files)"
+            " (the header holds semicolons: set the separator with --separator ';')"
         }
         [only] if only.name.contains('\t') => {
-            " (the header looks tab-separated: relume reads comma-separated files)"
+            " (the header holds tabs: set the separator with --separator tab)"
         }
         _ => "",
     }

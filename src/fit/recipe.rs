@@ -280,6 +280,12 @@ impl Recipe {
     /// training rows only.
     pub fn split(&self, rows: usize) -> Result<(Vec<usize>, Vec<usize>), TrainError> {
         let config = self.config_for(rows);
+        if !(0.0..1.0).contains(&config.val_frac) {
+            return Err(TrainError::Data(format!(
+                "a validation fraction of {} is not in [0, 1) (for example 0.2)",
+                config.val_frac
+            )));
+        }
         let n_val = (rows as f64 * config.val_frac).round() as usize;
         if n_val >= rows {
             return Err(TrainError::Data(format!(

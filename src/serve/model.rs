@@ -105,6 +105,39 @@ pub struct ModelSummary {
     /// used for fitting, early stopping or the penalty choice).
     #[serde(default)]
     pub calibration_rows: usize,
+    /// What a careful analyst would say about the result (few rows, more inputs than rows, a
+    /// validation R² below 0).
+    #[serde(default)]
+    pub warnings: Vec<String>,
+}
+
+/// Fewer training rows than this get a warning. Common practice, no source: below a few
+/// dozen rows a validation score says little and a network is rarely better than a line.
+pub const FEW_TRAINING_ROWS: usize = 50;
+
+/// Warnings about a finished fit.
+fn result_warnings(train_rows: usize, inputs: usize, validation: Option<&Metrics>) -> Vec<String> {
+    let mut out = Vec::new();
+    if train_rows < FEW_TRAINING_ROWS {
+        out.push(format!(
+            "only {train_rows} training rows (fewer than {FEW_TRAINING_ROWS}): the model and \
+             its validation score are unreliable"
+        ));
+    }
+    if inputs > train_rows {
+        out.push(format!(
+            "{inputs} inputs for {train_rows} training rows: more inputs than rows invites \
+             overfitting; leave columns out or gather more rows"
+        ));
+    }
+    if let Some(v) = validation.filter(|v| v.r2 < 0.0) {
+        out.push(format!(
+            "the validation R² is {:.3}: the model predicts worse than the mean of the target \
+             would; do not use it as it is",
+            v.r2
+        ));
+    }
+    out
 }
 
 /// How one ensemble member trained.
@@ -160,6 +193,9 @@ pub enum FitError {
     /// Training failed.
     #[error(transparent)]
     Train(#[from] TrainError),
+    /// The model asked for could not be saved or loaded (too large, too wide).
+    #[error("{0}")]
+    Size(String),
 }
 
 /// A table encoded for training ([`Model::prepare`]): the fitted encoder (with what became of
@@ -260,6 +296,7 @@ impl Model {
             val_rows,
             empty_targets,
         } = prepared;
+        check_trainable(recipe, x.nrows(), x.ncols()).map_err(FitError::Size)?;
         let (stop_rows, calibration) = split_validation(&val_rows, recipe.seed);
         let train_rows = complement(x.nrows(), &val_rows);
         let ensemble = fit_ensemble(
@@ -326,6 +363,7 @@ impl Model {
             .unwrap_or_default();
         let first = &members[0];
         let s = &first.summary;
+        let warnings = result_warnings(s.rows.0, x.ncols(), validation.as_ref());
         let summary = ModelSummary {
             train_rows: s.rows.0,
             val_rows: s.rows.1,
@@ -340,6 +378,7 @@ impl Model {
             l2: Some(ensemble.l2),
             penalty_grid: ensemble.grid,
             calibration_rows: calibration.len(),
+            warnings,
         };
         let (inputs, target) = (first.inputs.clone(), first.target.clone());
         Ok((
@@ -461,7 +500,6 @@ impl Model {
                 file.members.len()
             ));
         }
-        validate(&file)?;
         let mut total = 0usize;
         for (m, member) in file.members.iter().enumerate() {
             total = total
@@ -472,6 +510,7 @@ impl Model {
                 .filter(|&c| c <= MAX_PARAMS)
                 .ok_or_else(|| format!("more than {MAX_PARAMS} parameters in all"))?;
         }
+        validate(&file)?;
         let mut members = Vec::with_capacity(file.members.len());
         for member in &file.members {
             let mut network = Network::<f32>::from_specs(file.input_width, &member.layers)
@@ -498,10 +537,26 @@ impl Model {
 /// Checks one network's sizes (before anything is built), shapes and values; returns its
 /// parameter count.
 fn validate_network(input_width: usize, file: &MemberFile) -> Result<usize, String> {
-    if file.layers.is_empty() || file.layers.len() > MAX_LAYERS {
+    let count = layer_sizes(input_width, &file.layers)?;
+    if file.parameters.len() != count {
+        return Err(format!(
+            "{} parameters stored, but the layers need {count}",
+            file.parameters.len()
+        ));
+    }
+    if let Some(i) = file.parameters.iter().position(|p| !p.is_finite()) {
+        return Err(format!("parameter {i} is not finite"));
+    }
+    Ok(count)
+}
+
+/// Checks the layer widths and chaining against the loader's bounds (before anything is
+/// built); returns the parameter count.
+pub fn layer_sizes(input_width: usize, layers: &[LayerSpec]) -> Result<usize, String> {
+    if layers.is_empty() || layers.len() > MAX_LAYERS {
         return Err(format!(
             "{} layers: must be 1 to {MAX_LAYERS}",
-            file.layers.len()
+            layers.len()
         ));
     }
     let check_width = |what: &str, w: usize| {
@@ -514,7 +569,7 @@ fn validate_network(input_width: usize, file: &MemberFile) -> Result<usize, Stri
     check_width("input width", input_width)?;
     let mut width = input_width;
     let mut count: usize = 0;
-    for (i, layer) in file.layers.iter().enumerate() {
+    for (i, layer) in layers.iter().enumerate() {
         let (takes, gives, params) = match *layer {
             LayerSpec::Affine {
                 inputs, outputs, ..
@@ -559,16 +614,36 @@ fn validate_network(input_width: usize, file: &MemberFile) -> Result<usize, Stri
             "the network gives {width} outputs; a model has one target"
         ));
     }
-    if file.parameters.len() != count {
+    Ok(count)
+}
+
+/// Bytes a parameter takes in the model file at most (an f64 in JSON with its comma).
+pub const BYTES_PER_PARAMETER: u64 = 24;
+
+/// Refuses, before anything is allocated, an ensemble the loader would refuse: widths, layer
+/// count, members, and the file size its parameters would need.
+pub fn check_trainable(recipe: &Recipe, rows: usize, inputs: usize) -> Result<(), String> {
+    let specs = recipe
+        .plan(rows, inputs, 1)
+        .specs()
+        .map_err(|e| e.to_string())?;
+    let per_network = layer_sizes(inputs, &specs)?;
+    let members = recipe.members.max(1);
+    if members > MAX_MEMBERS {
+        return Err(format!("{members} ensemble members: at most {MAX_MEMBERS}"));
+    }
+    let total = per_network.saturating_mul(members);
+    let bytes = (total as u64).saturating_mul(BYTES_PER_PARAMETER);
+    if total > MAX_PARAMS || bytes > MAX_MODEL_BYTES {
         return Err(format!(
-            "{} parameters stored, but the layers need {count}",
-            file.parameters.len()
+            "{members} networks of {per_network} parameters would need a model file of about \
+             {:.1} GB; a model file holds at most {} MB (use fewer or narrower layers, or \
+             fewer members)",
+            bytes as f64 / 1e9,
+            MAX_MODEL_BYTES >> 20
         ));
     }
-    if let Some(i) = file.parameters.iter().position(|p| !p.is_finite()) {
-        return Err(format!("parameter {i} is not finite"));
-    }
-    Ok(count)
+    Ok(())
 }
 
 /// Checks the encoder, the scaling and their widths against the network's input width.
