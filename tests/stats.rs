@@ -294,10 +294,12 @@ proptest! {
         let v = incomplete_beta(x, a, b);
         prop_assert!(v.is_finite() && (0.0..=1.0).contains(&v), "I_{x}({a}, {b}) = {v}");
         // Symmetry I_x(a, b) = 1 − I_{1−x}(b, a) (Abramowitz & Stegun 26.5.2, from memory),
-        // with 1 − x exact for x ≥ 1/2.
+        // with 1 − x exact for x ≥ 1/2. The bound is the accuracy measured against mpmath for
+        // shapes near 1e4 at x near the mean (worst 2.2e-12 relative, tests/data/stats_mpmath);
+        // 1e-12 was tighter than that and failed at a = 9997.6, b = 6234.6 (sum off by 1.7e-12).
         if x >= 0.5 {
             let w = incomplete_beta(1.0 - x, b, a);
-            prop_assert!((v + w - 1.0).abs() <= 1e-12, "I_{x}({a}, {b}) = {v}, complement {w}");
+            prop_assert!((v + w - 1.0).abs() <= 5e-12, "I_{x}({a}, {b}) = {v}, complement {w}");
         }
     }
 }
