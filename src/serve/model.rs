@@ -204,7 +204,7 @@ pub enum FitError {
 pub struct Prepared {
     /// The encoder, fitted as [`Encoder::fit`] says.
     pub encoder: Encoder,
-    /// Prepared inputs, one row per table row with a target.
+    /// Encoded inputs, one row per table row with a target.
     pub x: ndarray::Array2<f32>,
     /// The target as the network models it.
     pub y: ndarray::Array2<f32>,
