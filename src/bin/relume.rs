@@ -5,7 +5,10 @@
 use clap::{Args, Parser, Subcommand};
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 use relume::data::{list_some, DataError, EncoderSpec, Impute, ReadOptions, Table, UnseenPolicy};
-use relume::fit::monitor::MonitorConfig;
+use relume::fit::monitor::{MonitorConfig, Revival};
+use relume::fit::penalty::L1Mode;
+use relume::fit::schedule::Schedule;
+use relume::nn::loss::Loss;
 use relume::report::{plot_run, PlotOptions};
 use relume::serve::metrics::Metrics;
 use relume::serve::model::{FitError, ModelError};
@@ -89,6 +92,8 @@ struct CompareArgs {
     /// Optimizer for every candidate.
     #[arg(long, value_name = "adam")]
     optimizer: Option<OptimizerChoice>,
+    #[command(flatten)]
+    learning: LearningArgs,
     /// Run only shard i of n of the grid and write a partial report (merge the parts later);
     /// auto: from a Slurm array task or a Kubernetes indexed Job (count in RELUME_SHARD_COUNT).
     #[arg(long, value_name = "i/n|auto")]
@@ -225,6 +230,110 @@ enum UnseenArg {
     Error,
 }
 
+/// Loss, schedule, clipping, dropout and revival: shared by `train` and `compare`.
+#[derive(Args, Debug)]
+struct LearningArgs {
+    /// Training loss: mse, mae, huber[:delta] (delta in standardized target units, default 1)
+    /// or quantile[:tau] (the model then predicts the tau quantile; default 0.5). Default mse.
+    #[arg(long, value_name = "mse")]
+    loss: Option<Loss>,
+    /// Learning-rate schedule for step-based optimizers: constant, step:EVERY[:FACTOR],
+    /// exponential:GAMMA, cosine:TOTAL[:WARMUP[:FLOOR]], plateau[:PATIENCE[:FACTOR[:MIN]]]
+    /// (default plateau:10:0.5:0.01 with adam; L-BFGS takes none).
+    #[arg(long, value_name = "plateau:10")]
+    schedule: Option<Schedule>,
+    /// Rescale each step's gradient when its L2 norm exceeds X (default: no clipping).
+    #[arg(long, value_name = "X", allow_negative_numbers = true)]
+    clip_norm: Option<f64>,
+    /// Clamp every gradient entry to ±X (default: no clipping).
+    #[arg(long, value_name = "X", allow_negative_numbers = true)]
+    clip_value: Option<f64>,
+    /// Dropout probability after each hidden activation, in [0, 1) (default 0: none).
+    #[arg(long, value_name = "P", allow_negative_numbers = true)]
+    dropout: Option<f64>,
+    /// Apply the --l1 penalty as a soft-threshold after each step, which gives exact zeros
+    /// (step-based optimizers only; default: L1 in the gradient). With --l2 as well, the
+    /// penalty is an elastic net.
+    #[arg(long)]
+    l1_proximal: bool,
+    /// Every N epochs, re-initialize dead or dormant hidden units (default: never).
+    #[arg(long, value_name = "N")]
+    revive_every: Option<usize>,
+    /// Units whose dormant score is at most T are revived (default 0: dead units only).
+    #[arg(
+        long,
+        value_name = "T",
+        allow_negative_numbers = true,
+        requires = "revive_every"
+    )]
+    revive_tau: Option<f64>,
+}
+
+impl LearningArgs {
+    /// These options written into `o`, checked.
+    fn apply(&self, o: &mut Overrides) -> Result<(), Failure> {
+        if let Some(p) = self.dropout {
+            if !(0.0..1.0).contains(&p) {
+                return Err(Failure::User(format!(
+                    "--dropout {p} must be in [0, 1) (for example 0.1)"
+                )));
+            }
+        }
+        if let Some(t) = self.revive_tau {
+            if !(0.0..=1.0).contains(&t) {
+                return Err(Failure::User(format!(
+                    "--revive-tau {t} must be in [0, 1] (0: dead units only)"
+                )));
+            }
+        }
+        if self.revive_every == Some(0) {
+            return Err(Failure::User(
+                "--revive-every must be at least 1 epoch".to_string(),
+            ));
+        }
+        o.loss = self.loss;
+        o.schedule = self.schedule;
+        o.clip_norm = self.clip_norm;
+        o.clip_value = self.clip_value;
+        o.dropout = self.dropout;
+        o.l1_mode = self.l1_proximal.then_some(L1Mode::Proximal);
+        o.revival = self.revive_every.map(|every| Revival {
+            every,
+            tau: self.revive_tau.unwrap_or(0.0),
+            seed: 0,
+        });
+        Ok(())
+    }
+}
+
+/// Refuses options that the optimizer chosen for a table of `rows` rows would ignore.
+fn refuse_step_only(o: &Overrides, rows: usize) -> Result<(), Failure> {
+    let unused = o.step_only(rows);
+    if unused.is_empty() {
+        return Ok(());
+    }
+    let flags: Vec<String> = unused
+        .iter()
+        .map(|field| match *field {
+            "l1_mode" => "--l1-proximal".to_string(),
+            other => format!("--{}", other.replace('_', "-")),
+        })
+        .collect();
+    Err(Failure::User(format!(
+        "{} cannot be used here: L-BFGS trains this table ({}), and it takes no learning rate, \
+         batch, schedule, clipping or proximal step; add --optimizer adam (or another \
+         step-based optimizer) to use {}, or leave {} out",
+        flags.join(", "),
+        if o.optimizer.is_some() {
+            "as --optimizer asks"
+        } else {
+            "the default for tables up to 1000 training rows"
+        },
+        if flags.len() == 1 { "it" } else { "them" },
+        if flags.len() == 1 { "it" } else { "them" },
+    )))
+}
+
 #[derive(Args, Debug)]
 struct TrainArgs {
     #[command(flatten)]
@@ -276,6 +385,8 @@ struct TrainArgs {
     /// Nominal coverage of the split-conformal prediction interval (default 0.9).
     #[arg(long, value_name = "0.9", allow_negative_numbers = true)]
     coverage: Option<f64>,
+    #[command(flatten)]
+    learning: LearningArgs,
     /// Where to write the model file.
     #[arg(long, value_name = "MODEL")]
     out: PathBuf,
@@ -511,7 +622,7 @@ fn train(a: TrainArgs) -> Result<(), Failure> {
     }
     let table = read_table(&a.table, &[])?;
     let spec = a.columns.spec();
-    let recipe = Overrides {
+    let mut overrides = Overrides {
         hidden: a.layers.clone(),
         activation: a.activation,
         init: a.init,
@@ -526,8 +637,11 @@ fn train(a: TrainArgs) -> Result<(), Failure> {
         seed: a.seed,
         members: a.members,
         coverage: a.coverage,
-    }
-    .recipe();
+        ..Overrides::default()
+    };
+    a.learning.apply(&mut overrides)?;
+    refuse_step_only(&overrides, table.rows())?;
+    let recipe = overrides.recipe();
     if !(recipe.coverage > 0.0 && recipe.coverage < 1.0) {
         return Err(Failure::User(format!(
             "--coverage {} must be between 0 and 1 (for example 0.9)",
@@ -561,12 +675,7 @@ fn train(a: TrainArgs) -> Result<(), Failure> {
         a.columns.target
     );
     let config = recipe.config_for(table.rows());
-    if config.optimizer.is_full_batch() && (a.lr.is_some() || a.batch.is_some()) {
-        eprintln!(
-            "note: --lr and --batch do not apply: L-BFGS trains this table (chosen for tables \
-             up to 1000 training rows); add --optimizer adam to use them"
-        );
-    }
+    eprintln!("loss: {}", describe_loss(config.objective.loss));
     eprintln!(
         "training: {} hidden layers of {} units, {}, {} optimizer, up to {} epochs, validation {:.0}%",
         recipe.hidden.len(),
@@ -684,6 +793,21 @@ fn train(a: TrainArgs) -> Result<(), Failure> {
     }
     eprintln!("\n{CAUTIONS}");
     Ok(())
+}
+
+/// The loss in words: what the model's prediction is.
+fn describe_loss(loss: Loss) -> String {
+    match loss {
+        Loss::Mse => "mse (predicts the mean of the target)".to_string(),
+        Loss::Mae => "mae (predicts the median of the target)".to_string(),
+        Loss::Huber { delta } => format!(
+            "huber:{delta} (squared within {delta} sd of the target, absolute beyond; robust \
+             to outliers)"
+        ),
+        Loss::Quantile { tau } => {
+            format!("quantile:{tau} (predicts the {tau} quantile of the target)")
+        }
+    }
 }
 
 /// The ensemble's members, the penalty choice and the interval, one line each.
@@ -938,7 +1062,10 @@ fn predict(a: PredictArgs) -> Result<(), Failure> {
 
 fn evaluate(a: EvaluateArgs) -> Result<(), Failure> {
     check_outputs(&[("--report", a.report.as_deref())])?;
-    let predictor = Predictor::load(&a.model)?;
+    let model = Model::load(&a.model)?;
+    let loss = model.summary.loss;
+    let predictor = Predictor::new(&model);
+    drop(model);
     let table = read_table(&a.table, &predictor.encoder().text_columns())?;
     let encoder = predictor.encoder();
     let target = encoder.target.name.clone();
@@ -994,6 +1121,22 @@ fn evaluate(a: EvaluateArgs) -> Result<(), Failure> {
         "residual  5% {:.4}  25% {:.4}  median {:.4}  75% {:.4}  95% {:.4}",
         q[0], q[1], q[2], q[3], q[4]
     );
+    // A quantile model is scored by its own loss and by how many targets fall below it.
+    let quantile = match loss {
+        Loss::Quantile { tau } => {
+            let pinball = relume::serve::metrics::pinball_loss(&predictions, &targets, tau);
+            let below = relume::serve::metrics::share_below(&predictions, &targets);
+            println!("pinball   {pinball:.6}  (quantile loss at tau = {tau})");
+            println!(
+                "below     {:.1}% of targets at or below the prediction (a {tau} quantile \
+                 model aims at {:.1}%)",
+                100.0 * below,
+                100.0 * tau
+            );
+            Some((tau, pinball, below))
+        }
+        _ => None,
+    };
     match (coverage, nominal, mean_width) {
         (Some(c), Some(n), Some(w)) => println!(
             "interval  {:.1}% of rows inside (nominal {:.0}%), mean width {w:.4}",
@@ -1016,6 +1159,10 @@ fn evaluate(a: EvaluateArgs) -> Result<(), Failure> {
             "residual_quantiles": m.residual_quantiles,
             "extrapolated_rows": flagged,
             "rows_not_evaluated": failed,
+            "loss": loss.to_string(),
+            "quantile": quantile.map(|q| q.0),
+            "pinball_loss": quantile.map(|q| q.1),
+            "share_below": quantile.map(|q| q.2),
             "model": a.model.display().to_string(),
             "data": table.source,
         });
@@ -1076,6 +1223,7 @@ fn inspect(a: InspectArgs) -> Result<(), Failure> {
         if t.log { " (modelled as ln)" } else { "" }
     );
     let s = &model.summary;
+    println!("loss: {}", describe_loss(s.loss));
     println!(
         "training: {} rows, {} validation rows, {} epochs, best epoch {}; {}",
         s.train_rows,
@@ -1160,12 +1308,14 @@ fn compare(a: CompareArgs) -> Result<(), Failure> {
         .map_err(Failure::User)?;
     let table = read_table(&a.table, &[])?;
     let spec = a.columns.spec();
-    let base = Overrides {
+    let mut base = Overrides {
         hidden: a.layers.clone(),
         epochs: a.epochs,
         optimizer: a.optimizer,
         ..Overrides::default()
     };
+    a.learning.apply(&mut base)?;
+    refuse_step_only(&base, table.rows())?;
     let plan = relume::sweep::compare::SweepPlan::grid(
         &a.activations,
         &a.inits,

@@ -150,7 +150,7 @@ impl Table {
             .has_headers(true)
             .delimiter(separator)
             .trim(csv::Trim::All)
-            .flexible(false)
+            .flexible(true)
             .from_reader(std::io::Read::chain(&header[..], reader));
         let table_error = |message: String| DataError::Table {
             source_name: source.to_string(),
@@ -190,11 +190,6 @@ impl Table {
                 Err(e) => {
                     let line = e.position().map_or(0, |p| p.line());
                     let message = match e.kind() {
-                        csv::ErrorKind::UnequalLengths {
-                            expected_len, len, ..
-                        } => {
-                            format!("line {line}: {len} fields where the header has {expected_len}")
-                        }
                         csv::ErrorKind::Utf8 { .. } => format!(
                             "line {line}: the text is not valid UTF-8; re-encode the file as UTF-8"
                         ),
@@ -204,6 +199,13 @@ impl Table {
                 }
             }
             let line = record.position().map_or(0, |p| p.line());
+            if record.len() != headers.len() {
+                return Err(table_error(field_count_message(
+                    &record,
+                    line,
+                    headers.len(),
+                )));
+            }
             builder.push(&record, line)?;
         }
         builder.finish()
@@ -319,4 +321,22 @@ fn separator_hint(columns: &[Column]) -> &'static str {
         }
         _ => "",
     }
+}
+
+/// The message for a record whose field count differs from the header's, with a hint when a
+/// quoted field runs across lines (the usual sign of a quote that is never closed).
+fn field_count_message(record: &csv::StringRecord, line: u64, expected: usize) -> String {
+    let mut message = format!(
+        "line {line}: {} fields where the header has {expected}",
+        record.len()
+    );
+    if let Some(field) = record.iter().find(|f| f.contains('\n')) {
+        let spans = field.matches('\n').count() as u64;
+        message += &format!(
+            "; a quoted field starting on line {line} runs on to line {}: a quote (\") is probably \
+             never closed",
+            line + spans
+        );
+    }
+    message
 }

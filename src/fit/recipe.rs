@@ -15,9 +15,10 @@
 //!   progress: on Friedman #1 and the demo table this beat plain Adam clearly (1.15 vs 1.33
 //!   test RMSE on Friedman #1).
 
-use crate::fit::monitor::{Monitor, MonitorConfig};
+use crate::fit::monitor::{Monitor, MonitorConfig, Revival};
 use crate::fit::objective::Objective;
 use crate::fit::optim::OptimizerChoice;
+use crate::fit::penalty::L1Mode;
 use crate::fit::penalty::Penalty;
 use crate::fit::scale::Standardizer;
 use crate::fit::schedule::Schedule;
@@ -81,6 +82,9 @@ pub struct Recipe {
     /// Nominal coverage of the prediction interval.
     #[serde(default = "default_coverage")]
     pub coverage: f64,
+    /// Revival of dead or dormant units in every run (Sokar et al. 2023), off by default.
+    #[serde(default)]
+    pub revival: Option<Revival>,
 }
 
 fn default_members() -> usize {
@@ -125,6 +129,7 @@ impl Default for Recipe {
             members: default_members(),
             choose_penalty: true,
             coverage: default_coverage(),
+            revival: None,
         }
     }
 }
@@ -162,7 +167,39 @@ pub struct Overrides {
     /// Nominal coverage of the prediction interval.
     #[serde(default)]
     pub coverage: Option<f64>,
+    /// Training loss.
+    #[serde(default)]
+    pub loss: Option<Loss>,
+    /// Learning-rate schedule of step-based optimizers.
+    #[serde(default)]
+    pub schedule: Option<Schedule>,
+    /// Gradient-norm clipping threshold.
+    #[serde(default)]
+    pub clip_norm: Option<f64>,
+    /// Gradient-value clipping threshold.
+    #[serde(default)]
+    pub clip_value: Option<f64>,
+    /// Dropout after each hidden activation.
+    #[serde(default)]
+    pub dropout: Option<f64>,
+    /// How the L1 penalty is applied.
+    #[serde(default)]
+    pub l1_mode: Option<L1Mode>,
+    /// Revival of dead or dormant units.
+    #[serde(default)]
+    pub revival: Option<Revival>,
 }
+
+/// The [`Overrides`] fields that only step-based optimizers use, as [`Overrides::step_only`]
+/// names them.
+const STEP_ONLY: [&str; 6] = [
+    "lr",
+    "batch",
+    "schedule",
+    "clip_norm",
+    "clip_value",
+    "l1_mode",
+];
 
 impl Overrides {
     /// The default recipe with these changes applied to both size regimes.
@@ -201,6 +238,10 @@ impl Overrides {
             // A penalty given by hand is used as given.
             recipe.choose_penalty = false;
         }
+        if let Some(p) = self.dropout {
+            recipe.dropout = p;
+        }
+        recipe.revival = self.revival;
         let mut configs: Vec<&mut TrainConfig> = vec![&mut recipe.train];
         if let Some(small) = recipe.small_tables.as_mut() {
             configs.push(small);
@@ -229,8 +270,42 @@ impl Overrides {
                 p.l1 = self.l1.unwrap_or(p.l1);
                 p.l2 = self.l2.unwrap_or(p.l2);
             }
+            if let Some(mode) = self.l1_mode {
+                c.objective.penalty.l1_mode = mode;
+            }
+            if let Some(loss) = self.loss {
+                c.objective.loss = loss;
+            }
+            if let Some(s) = self.schedule {
+                c.schedule = s;
+            }
+            c.clip_norm = self.clip_norm.or(c.clip_norm);
+            c.clip_value = self.clip_value.or(c.clip_value);
         }
         recipe
+    }
+
+    /// The options given here that the optimizer chosen for a table of `rows` rows would
+    /// ignore (L-BFGS takes no learning rate, batch, schedule, clipping or proximal step), by
+    /// field name; empty when every option applies.
+    pub fn step_only(&self, rows: usize) -> Vec<&'static str> {
+        if !self.recipe().config_for(rows).optimizer.is_full_batch() {
+            return Vec::new();
+        }
+        let given = [
+            self.lr.is_some(),
+            self.batch.is_some(),
+            self.schedule.is_some(),
+            self.clip_norm.is_some(),
+            self.clip_value.is_some(),
+            self.l1_mode == Some(L1Mode::Proximal),
+        ];
+        STEP_ONLY
+            .iter()
+            .zip(given)
+            .filter(|(_, g)| *g)
+            .map(|(n, _)| *n)
+            .collect()
     }
 }
 
@@ -415,6 +490,23 @@ impl Recipe {
             )
         });
         let val_views = val.as_ref().map(|(vx, vy)| (vx.view(), vy.view()));
+        // Revival needs a monitor even when no report is asked for; each run draws its own
+        // revived weights.
+        let revival = self.revival.map(|r| Revival {
+            seed: r.seed ^ self.seed,
+            ..r
+        });
+        let monitor = match (monitor, revival) {
+            (Some(m), r) => Some(MonitorConfig {
+                revival: r.or(m.revival),
+                ..m
+            }),
+            (None, Some(r)) => Some(MonitorConfig {
+                revival: Some(r),
+                ..MonitorConfig::default()
+            }),
+            (None, None) => None,
+        };
         let mut watcher = monitor.map(|c| Monitor::new(probe_rows(xs.view()).view(), c));
         let mut chain = Chain {
             monitor: watcher.as_mut(),

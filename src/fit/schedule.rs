@@ -142,3 +142,121 @@ impl RateTracker {
         }
     }
 }
+
+/// Names [`Schedule`]'s text form accepts, with their parameters.
+pub const SCHEDULE_FORMS: &str = "constant, step:EVERY[:FACTOR], exponential:GAMMA, \
+     cosine:TOTAL[:WARMUP[:FLOOR]], plateau[:PATIENCE[:FACTOR[:MIN_FRACTION]]]";
+
+impl std::str::FromStr for Schedule {
+    type Err = ConfigError;
+
+    /// Parses `name` or `name:param:param` in the order of [`SCHEDULE_FORMS`]: `constant`,
+    /// `step:20:0.5` (factor 0.5 by default), `exponential:0.99`, `cosine:200:10:0.01`
+    /// (warm-up 0 and floor 0 by default), `plateau:10:0.5:0.01` (the recipe's own values by
+    /// default).
+    fn from_str(text: &str) -> Result<Self, Self::Err> {
+        let mut parts = text.trim().split(':');
+        let name = parts.next().unwrap_or("").trim().to_ascii_lowercase();
+        let params: Vec<&str> = parts.map(str::trim).collect();
+        let what = || format!("schedule '{text}'");
+        let number = |i: usize| -> Result<Option<f64>, ConfigError> {
+            params
+                .get(i)
+                .map(|s| {
+                    s.parse::<f64>().map_err(|_| {
+                        ConfigError::invalid(what(), format!("parameter '{s}' is not a number"))
+                    })
+                })
+                .transpose()
+        };
+        let count = |i: usize| -> Result<Option<usize>, ConfigError> {
+            params
+                .get(i)
+                .map(|s| {
+                    s.parse::<usize>().map_err(|_| {
+                        ConfigError::invalid(
+                            what(),
+                            format!("parameter '{s}' is not a whole number of epochs"),
+                        )
+                    })
+                })
+                .transpose()
+        };
+        let required = |v: Option<usize>, name: &str| {
+            v.ok_or_else(|| ConfigError::invalid(what(), format!("needs {name}")))
+        };
+        let (schedule, most) = match name.as_str() {
+            "constant" => (Schedule::Constant, 0),
+            "step" => (
+                Schedule::Step {
+                    every: required(count(0)?, "the epochs between cuts, e.g. step:20")?,
+                    factor: number(1)?.unwrap_or(0.5),
+                },
+                2,
+            ),
+            "exponential" => (
+                Schedule::Exponential {
+                    gamma: number(0)?.ok_or_else(|| {
+                        ConfigError::invalid(
+                            what(),
+                            "needs the per-epoch factor, e.g. exponential:0.99",
+                        )
+                    })?,
+                },
+                1,
+            ),
+            "cosine" => (
+                Schedule::Cosine {
+                    total: required(count(0)?, "the epoch the cosine ends at, e.g. cosine:200")?,
+                    warmup: count(1)?.unwrap_or(0),
+                    floor: number(2)?.unwrap_or(0.0),
+                },
+                3,
+            ),
+            "plateau" => (
+                Schedule::Plateau {
+                    patience: count(0)?.unwrap_or(10),
+                    factor: number(1)?.unwrap_or(0.5),
+                    min_fraction: number(2)?.unwrap_or(0.01),
+                },
+                3,
+            ),
+            _ => {
+                return Err(ConfigError::UnknownName {
+                    kind: "schedule",
+                    name: text.to_string(),
+                    known: SCHEDULE_FORMS.to_string(),
+                })
+            }
+        };
+        if params.len() > most {
+            return Err(ConfigError::invalid(
+                what(),
+                format!("takes at most {most} parameter(s)"),
+            ));
+        }
+        schedule.validate()?;
+        Ok(schedule)
+    }
+}
+
+impl std::fmt::Display for Schedule {
+    /// The text form [`Schedule::from_str`] reads back.
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match *self {
+            Schedule::Constant => f.write_str("constant"),
+            Schedule::Step { every, factor } => write!(f, "step:{every}:{factor}"),
+            Schedule::Exponential { gamma } => write!(f, "exponential:{gamma}"),
+            Schedule::Cosine {
+                warmup,
+                total,
+                floor,
+            } => write!(f, "cosine:{total}:{warmup}:{floor}"),
+            Schedule::Plateau {
+                patience,
+                factor,
+                min_fraction,
+            } => write!(f, "plateau:{patience}:{factor}:{min_fraction}"),
+        }
+    }
+}

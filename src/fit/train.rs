@@ -253,7 +253,7 @@ pub enum TrainError {
     #[error(
         "training diverged: a non-finite value first appeared in {location} at epoch {epoch}{}, \
          after {rollbacks} roll-backs that halved the learning rate to {lr:e}. Try a lower \
-         learning rate, gradient clipping (clip_norm), a leaky rectifier instead of ReLU, or \
+         learning rate, gradient clipping (--clip-norm; clip_norm in the library), a leaky rectifier instead of ReLU, or \
          scaled inputs and target",
         step.map_or(String::new(), |s| format!(", step {s}"))
     )]

@@ -152,6 +152,17 @@ fn same_shape(what: &str, expected: (usize, usize), got: (usize, usize)) -> Resu
     }
 }
 
+impl std::fmt::Display for Loss {
+    /// The text form [`Loss::from_str`] reads back: `mse`, `mae`, `huber:1`, `quantile:0.9`.
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match *self {
+            Loss::Huber { delta } => write!(f, "huber:{delta}"),
+            Loss::Quantile { tau } => write!(f, "quantile:{tau}"),
+            _ => f.write_str(self.name()),
+        }
+    }
+}
+
 impl FromStr for Loss {
     type Err = ConfigError;
 

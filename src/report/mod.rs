@@ -99,6 +99,31 @@ pub struct RunReport {
     /// Warnings about the data (likely leaks, a skewed target, pooled levels, empty targets).
     #[serde(default)]
     pub data_warnings: Vec<String>,
+    /// Epochs whose learning rate differs from the epoch before (a schedule step, a plateau
+    /// cut or a guard cut), with the new rate.
+    #[serde(default)]
+    pub rate_changes: Vec<RateChange>,
+    /// Epochs at whose end units were revived, with how many (all hidden layers together).
+    #[serde(default)]
+    pub revivals: Vec<RevivalEvent>,
+}
+
+/// A change of the learning rate between two epochs.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct RateChange {
+    /// The first epoch trained at the new rate.
+    pub epoch: usize,
+    /// The new rate.
+    pub lr: f64,
+}
+
+/// Units revived at the end of one epoch.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct RevivalEvent {
+    /// The epoch at whose end the units were revived.
+    pub epoch: usize,
+    /// Units revived, over every hidden layer.
+    pub units: usize,
 }
 
 impl RunReport {
@@ -148,7 +173,33 @@ impl RunReport {
             },
             columns: Vec::new(),
             data_warnings: Vec::new(),
+            rate_changes: Vec::new(),
+            revivals: Vec::new(),
         }
+        .with_events()
+    }
+
+    /// Fills `rate_changes` and `revivals` from the per-epoch entries.
+    fn with_events(mut self) -> Self {
+        self.rate_changes = self
+            .epochs
+            .windows(2)
+            .filter(|w| w[1].lr != w[0].lr)
+            .map(|w| RateChange {
+                epoch: w[1].epoch,
+                lr: w[1].lr,
+            })
+            .collect();
+        self.revivals = self
+            .epochs
+            .iter()
+            .map(|e| RevivalEvent {
+                epoch: e.epoch,
+                units: e.layers.iter().map(|l| l.revived).sum(),
+            })
+            .filter(|r| r.units > 0)
+            .collect();
+        self
     }
 
     /// Pretty-printed JSON. Non-finite numbers (which JSON cannot hold) become null.

@@ -278,7 +278,12 @@ pub fn plot_run(report: &RunReport, options: PlotOptions) -> String {
         report.final_metrics.best_epoch
     );
 
+    let cuts: Vec<usize> = report.rate_changes.iter().map(|c| c.epoch).collect();
+    event_marks(&mut svg, &loss, &cuts, "#8a5a00", "rate changed");
+
     dead.frame(&mut svg, "Dead units per hidden layer", "fraction dead");
+    let revived: Vec<usize> = report.revivals.iter().map(|r| r.epoch).collect();
+    event_marks(&mut svg, &dead, &revived, "#2a7f62", "units revived");
     let layer_count = report
         .epochs
         .iter()
@@ -326,6 +331,31 @@ pub fn plot_run(report: &RunReport, options: PlotOptions) -> String {
     );
     svg.push_str("</svg>\n");
     svg
+}
+
+/// Short ticks along the top of `panel` at each of `epochs`, with `label` once beside the
+/// first (at most 200 ticks are drawn, evenly spread, so a long run stays light).
+fn event_marks(svg: &mut String, panel: &Panel, epochs: &[usize], colour: &str, label: &str) {
+    let Some(&first) = epochs.first() else {
+        return;
+    };
+    let stride = epochs.len().div_ceil(200).max(1);
+    for &e in epochs.iter().step_by(stride) {
+        let x = panel.x(e as f64);
+        let _ = writeln!(
+            svg,
+            r#"<line x1="{x:.1}" x2="{x:.1}" y1="{:.1}" y2="{:.1}" stroke="{colour}" stroke-width="1.5"/>"#,
+            panel.top,
+            panel.top + 8.0
+        );
+    }
+    let _ = writeln!(
+        svg,
+        r#"<text x="{:.1}" y="{:.1}" font-size="10" fill="{colour}">{label} ({})</text>"#,
+        panel.x(first as f64) + 3.0,
+        panel.top + panel.height - 6.0,
+        epochs.len()
+    );
 }
 
 /// An SVG chart of a comparison: each candidate's validation RMSE per run (dots) with its mean

@@ -65,3 +65,28 @@ pub fn quantile(sorted: &[f64], q: f64) -> f64 {
     let (lo, hi) = (h.floor() as usize, h.ceil() as usize);
     sorted[lo] + (h - lo as f64) * (sorted[hi] - sorted[lo])
 }
+
+/// Mean pinball (quantile) loss of Koenker & Bassett 1978 at level `tau`: with u = target −
+/// prediction, τu when u ≥ 0 and (τ − 1)u when u < 0. NaN for no rows.
+pub fn pinball_loss(predictions: &[f64], targets: &[f64], tau: f64) -> f64 {
+    let n = predictions.len().min(targets.len());
+    let total: f64 = (0..n)
+        .map(|i| {
+            let u = targets[i] - predictions[i];
+            if u >= 0.0 {
+                tau * u
+            } else {
+                (tau - 1.0) * u
+            }
+        })
+        .sum();
+    total / n as f64
+}
+
+/// Share of rows whose target is below (or at) the prediction: near τ for a good τ-quantile
+/// model. NaN for no rows.
+pub fn share_below(predictions: &[f64], targets: &[f64]) -> f64 {
+    let n = predictions.len().min(targets.len());
+    let below = (0..n).filter(|&i| targets[i] <= predictions[i]).count();
+    below as f64 / n as f64
+}

@@ -12,6 +12,7 @@ use crate::fit::recipe::Recipe;
 use crate::fit::scale::Standardizer;
 use crate::fit::train::{StopReason, TrainError};
 use crate::nn::layer::LayerSpec;
+use crate::nn::loss::Loss;
 use crate::nn::network::Network;
 use crate::report::RunReport;
 use crate::serve::interval::Conformal;
@@ -109,13 +110,21 @@ pub struct ModelSummary {
     /// validation R² below 0).
     #[serde(default)]
     pub warnings: Vec<String>,
+    /// The training loss; a quantile loss means the model predicts that quantile (files
+    /// written before the loss was recorded trained with MSE).
+    #[serde(default = "mse")]
+    pub loss: Loss,
+}
+
+fn mse() -> Loss {
+    Loss::Mse
 }
 
 /// Fewer training rows than this get a warning. Common practice, no source: below a few
 /// dozen rows a validation score says little and a network is rarely better than a line.
 pub const FEW_TRAINING_ROWS: usize = 50;
 
-/// Warnings about a finished fit.
+/// Warnings about a finished fit (the R² one only when `validation` is given).
 fn result_warnings(train_rows: usize, inputs: usize, validation: Option<&Metrics>) -> Vec<String> {
     let mut out = Vec::new();
     if train_rows < FEW_TRAINING_ROWS {
@@ -363,7 +372,14 @@ impl Model {
             .unwrap_or_default();
         let first = &members[0];
         let s = &first.summary;
-        let warnings = result_warnings(s.rows.0, x.ncols(), validation.as_ref());
+        let loss = recipe.config_for(x.nrows()).objective.loss;
+        // A quantile model does not aim at the mean, so its R² says nothing about it.
+        let mean_like = !matches!(loss, Loss::Quantile { .. });
+        let warnings = result_warnings(
+            s.rows.0,
+            x.ncols(),
+            validation.as_ref().filter(|_| mean_like),
+        );
         let summary = ModelSummary {
             train_rows: s.rows.0,
             val_rows: s.rows.1,
@@ -379,6 +395,7 @@ impl Model {
             penalty_grid: ensemble.grid,
             calibration_rows: calibration.len(),
             warnings,
+            loss,
         };
         let (inputs, target) = (first.inputs.clone(), first.target.clone());
         Ok((
