@@ -640,6 +640,18 @@ pub const BYTES_PER_PARAMETER: u64 = 24;
 /// Refuses, before anything is allocated, an ensemble the loader would refuse: widths, layer
 /// count, members, and the file size its parameters would need.
 pub fn check_trainable(recipe: &Recipe, rows: usize, inputs: usize) -> Result<(), String> {
+    if let Some((k, &w)) = recipe
+        .hidden
+        .iter()
+        .enumerate()
+        .find(|(_, &w)| w == 0 || w > MAX_WIDTH)
+    {
+        return Err(format!(
+            "hidden layer {} would have {w} units (--layers): a model file holds layers of 1 to \
+             {MAX_WIDTH} units",
+            k + 1
+        ));
+    }
     let specs = recipe
         .plan(rows, inputs, 1)
         .specs()
