@@ -4,15 +4,15 @@
 //! and early-stopping rows (Lakshminarayanan, Pritzel & Blundell 2017 train members on the
 //! whole set; no bootstrap: see DEVELOPERS.md for the measurements). Before the members, the L2
 //! strength is picked from [`PENALTY_GRID`] by the first member's best early-stopping loss;
-//! that run becomes the first member. Runs go in parallel over the cores (rayon); each is
+//! that run becomes the first member. Runs go in parallel over the cores (rayon, with the `parallel` feature); each is
 //! seeded, so the result does not depend on the thread count.
 
 use crate::fit::monitor::MonitorConfig;
+use crate::fit::parallel::map_in_order;
 use crate::fit::recipe::{Recipe, Trained};
 use crate::fit::train::TrainError;
 use crate::report::RunReport;
 use ndarray::ArrayView2;
-use rayon::prelude::*;
 
 /// One training run: the trained network and, if watched, its report.
 type RunOutcome = Result<(Trained<f32>, Option<RunReport>), TrainError>;
@@ -101,17 +101,14 @@ pub fn fit_ensemble(
     } else {
         grid.clone()
     };
-    let runs: Vec<(f64, RunOutcome)> = candidates
-        .par_iter()
-        .map(|&l2| {
-            let r = if grid.is_empty() {
-                first.clone()
-            } else {
-                with_l2(&first, l2)
-            };
-            (l2, run(&r, true))
-        })
-        .collect();
+    let runs: Vec<(f64, RunOutcome)> = map_in_order(&candidates, |&l2| {
+        let r = if grid.is_empty() {
+            first.clone()
+        } else {
+            with_l2(&first, l2)
+        };
+        (l2, run(&r, true))
+    });
     let scores: Vec<(f64, Option<f64>)> = runs
         .iter()
         .map(|(l2, r)| {
@@ -147,10 +144,12 @@ pub fn fit_ensemble(
     } else {
         with_l2(recipe, l2)
     };
-    let rest: Vec<Trained<f32>> = (1..k)
-        .into_par_iter()
-        .map(|m| run(&member(&chosen, m), false).map(|(t, _)| t))
-        .collect::<Result<_, _>>()?;
+    let indices: Vec<usize> = (1..k).collect();
+    let rest: Vec<Trained<f32>> = map_in_order(&indices, |&m| {
+        run(&member(&chosen, m), false).map(|(t, _)| t)
+    })
+    .into_iter()
+    .collect::<Result<_, _>>()?;
     let mut members = vec![first_member];
     members.extend(rest);
     Ok(Ensemble {

@@ -5,6 +5,7 @@ pub mod ensemble;
 pub mod monitor;
 pub mod objective;
 pub mod optim;
+pub mod parallel;
 pub mod penalty;
 pub mod recipe;
 pub mod scale;

@@ -9,6 +9,7 @@
 
 use crate::data::{kfold, ColumnData, DataError, EncoderSpec, Table};
 use crate::fit::monitor::MonitorConfig;
+use crate::fit::parallel::map_in_order;
 use crate::fit::recipe::Overrides;
 use crate::fit::train::TrainError;
 use crate::nn::activation::Activation;
@@ -17,7 +18,6 @@ use crate::serve::model::{FitError, Model};
 use crate::serve::predict::Predictor;
 use crate::sweep::shard::Invocation;
 use crate::sweep::stats::{mean_sd_ci95, wilcoxon};
-use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use std::time::Instant;
 
@@ -259,10 +259,11 @@ pub fn run(
         .filter(|(k, _)| shard.is_none_or(|(i, n)| k % n == i))
         .map(|(_, c)| c)
         .collect();
-    let runs = cells
-        .par_iter()
-        .map(|cell| run_cell(table, spec, plan, &splits, truth, *cell))
-        .collect::<Result<Vec<_>, _>>()?;
+    let runs = map_in_order(&cells, |cell| {
+        run_cell(table, spec, plan, &splits, truth, *cell)
+    })
+    .into_iter()
+    .collect::<Result<Vec<_>, _>>()?;
     Ok(SweepReport {
         format: SWEEP_FORMAT.to_string(),
         version: SWEEP_VERSION,
