@@ -529,3 +529,38 @@ fn prediction_reads_columns_as_the_model_was_trained() {
         rows[0]
     );
 }
+
+#[test]
+fn reading_in_chunks_gives_the_rows_of_reading_whole() {
+    let mut text = String::from("a,b,y\n");
+    for i in 0..30 {
+        text += &format!("{i},{},{}\n", ["x", "y", "z"][i % 3], i * 2);
+    }
+    let whole = read(&text).unwrap();
+    let mut chunks = Vec::new();
+    let total = Table::read_chunks(text.as_bytes(), "t.csv", &ReadOptions::default(), 7, |t| {
+        chunks.push(t);
+        Ok::<(), DataError>(())
+    })
+    .unwrap();
+    assert_eq!(total, 30);
+    assert_eq!(
+        chunks.iter().map(Table::rows).collect::<Vec<_>>(),
+        vec![7, 7, 7, 7, 2]
+    );
+    let lines: Vec<u64> = chunks.iter().flat_map(|c| c.lines.clone()).collect();
+    assert_eq!(lines, whole.lines);
+    for (k, chunk) in chunks.iter().enumerate() {
+        let rows: Vec<usize> = (7 * k..7 * k + chunk.rows()).collect();
+        assert_eq!(chunk.columns, whole.select(&rows).columns, "chunk {k}");
+    }
+    let err = Table::read_chunks(
+        "a,y\n".as_bytes(),
+        "e.csv",
+        &ReadOptions::default(),
+        7,
+        |_| Ok::<(), DataError>(()),
+    )
+    .unwrap_err();
+    assert!(err.to_string().contains("no data rows"), "{err}");
+}

@@ -86,6 +86,11 @@ impl<'a> TableBuilder<'a> {
     }
 
     /// The finished table.
+    /// Rows pushed so far.
+    pub(super) fn rows(&self) -> usize {
+        self.lines.len() + self.sample.len()
+    }
+
     pub(super) fn finish(mut self) -> Result<Table, DataError> {
         if self.numeric.is_none() {
             self.decide()?;

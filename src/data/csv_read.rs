@@ -29,6 +29,28 @@ impl Table {
         source: &str,
         options: &ReadOptions,
     ) -> Result<Table, DataError> {
+        let mut whole = None;
+        Table::read_chunks(reader, source, options, usize::MAX, |t| {
+            whole = Some(t);
+            Ok::<(), DataError>(())
+        })?;
+        Ok(whole.expect("read_chunks hands over at least one table or fails"))
+    }
+
+    /// Reads CSV like [`Table::read`], but hands the rows to `each` in tables of at most
+    /// `chunk_rows` rows (the last may be shorter) as they are read, so memory stays bounded
+    /// by the chunk, not the file. Each chunk is typed on its own from its first
+    /// [`TYPING_ROWS`] rows (columns forced to text by the options stay text in every chunk);
+    /// lines keep counting from the top of the file. Returns the number of rows read. A file
+    /// without data rows is an error, as for [`Table::read`].
+    pub fn read_chunks<E: From<DataError>>(
+        reader: impl Read,
+        source: &str,
+        options: &ReadOptions,
+        chunk_rows: usize,
+        mut each: impl FnMut(Table) -> Result<(), E>,
+    ) -> Result<usize, E> {
+        let chunk_rows = chunk_rows.max(1);
         // The separator: given, or the most frequent of comma, semicolon and tab in the header.
         let mut reader = std::io::BufReader::new(reader);
         let mut header = Vec::new();
@@ -47,9 +69,12 @@ impl Table {
             .trim(csv::Trim::All)
             .flexible(true)
             .from_reader(std::io::Read::chain(&header[..], reader));
-        let table_error = |message: String| DataError::Table {
-            source_name: source.to_string(),
-            message,
+        let table_error = |message: String| -> E {
+            DataError::Table {
+                source_name: source.to_string(),
+                message,
+            }
+            .into()
         };
         let headers = csv
             .headers()
@@ -77,6 +102,7 @@ impl Table {
             )));
         }
         let mut builder = TableBuilder::new(source, &headers, options);
+        let mut total = 0usize;
         let mut record = csv::StringRecord::new();
         loop {
             match csv.read_record(&mut record) {
@@ -102,8 +128,17 @@ impl Table {
                 )));
             }
             builder.push(&record, line)?;
+            total += 1;
+            if builder.rows() >= chunk_rows {
+                let full =
+                    std::mem::replace(&mut builder, TableBuilder::new(source, &headers, options));
+                each(full.finish()?)?;
+            }
         }
-        builder.finish()
+        if builder.rows() > 0 || total == 0 {
+            each(builder.finish()?)?;
+        }
+        Ok(total)
     }
 }
 
