@@ -462,7 +462,7 @@ fn with_activation(specs: &[LayerSpec], activation: Activation) -> Vec<LayerSpec
                 width: *width,
                 activation,
             },
-            other => other.clone(),
+            other => *other,
         })
         .collect()
 }
