@@ -121,6 +121,8 @@ fn cost_report_has_the_documented_names_and_ordered_intervals() {
         assert!(json.get(key).is_some(), "top-level {key}");
     }
     assert!(!json["cpu"].as_str().unwrap().is_empty());
+    // 16 rows per batch prediction through two hidden layers of 8 units.
+    assert_eq!(json["batch_predict_activations"], 16 * (8 + 8));
     let candidates = json["candidates"].as_array().unwrap();
     let names: Vec<&str> = candidates
         .iter()

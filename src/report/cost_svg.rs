@@ -37,7 +37,8 @@ fn interval_text(i: Interval) -> String {
 }
 
 /// The cost report as Markdown: the header lines, then per candidate and measure the median
-/// µs with its 95% interval and the ratio to ReLU with its interval.
+/// µs with its 95% interval and the ratio to ReLU with its interval, and the extra time per
+/// activation value of a batch prediction over ReLU's (the unit of `perf_report`'s lines).
 pub fn cost_markdown(report: &CostReport) -> String {
     let mut s = header(report);
     s.push('\n');
@@ -45,9 +46,10 @@ pub fn cost_markdown(report: &CostReport) -> String {
     for m in Measure::ALL {
         let _ = write!(s, " {} µs (95% CI) | × ReLU (95% CI) |", title(m));
     }
-    s.push_str("\n|---|");
+    s.push_str(" batch prediction: extra ns per activation value |\n|---|");
     s.push_str(&"---|---|".repeat(Measure::ALL.len()));
-    s.push('\n');
+    s.push_str("---|\n");
+    let relu = report.candidates.first().map(|c| c.batch_predict_us);
     for c in &report.candidates {
         let _ = write!(s, "| {} |", c.activation);
         for m in Measure::ALL {
@@ -58,7 +60,10 @@ pub fn cost_markdown(report: &CostReport) -> String {
                 interval_text(c.vs_relu(m))
             );
         }
-        s.push('\n');
+        let extra = relu.map_or(f64::NAN, |r| {
+            1e3 * (c.batch_predict_us - r) / report.batch_predict_activations.max(1) as f64
+        });
+        let _ = writeln!(s, " {extra:.2} |");
     }
     s
 }

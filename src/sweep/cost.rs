@@ -253,6 +253,10 @@ pub struct CostReport {
     pub batch: usize,
     /// Rows per batch prediction.
     pub predict_rows: usize,
+    /// Activation values one batch prediction computes (rows × hidden units): the extra
+    /// time of a candidate over ReLU divided by this is its extra cost per element, the unit
+    /// of `perf_report`'s activation lines.
+    pub batch_predict_activations: usize,
     /// Rounds.
     pub rounds: usize,
     /// How the intervals are made.
@@ -465,6 +469,17 @@ fn with_activation(specs: &[LayerSpec], activation: Activation) -> Vec<LayerSpec
             other => *other,
         })
         .collect()
+}
+
+/// Hidden units that go through an activation, summed over the layers.
+fn activation_width(specs: &[LayerSpec]) -> usize {
+    specs
+        .iter()
+        .map(|s| match s {
+            LayerSpec::Activation { width, .. } => *width,
+            _ => 0,
+        })
+        .sum()
 }
 
 /// "10 inputs → 64 → 64 → 1, 5 networks (each timed in the row path)".
@@ -722,6 +737,7 @@ pub fn measure(
         architecture: describe_architecture(model),
         batch: options.batch,
         predict_rows: options.predict_rows,
+        batch_predict_activations: options.predict_rows * activation_width(&net.specs()),
         rounds: options.rounds,
         interval_method: INTERVAL_METHOD.into(),
         candidates,
