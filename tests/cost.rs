@@ -148,6 +148,9 @@ fn cost_report_has_the_documented_names_and_ordered_intervals() {
     assert!(CostReport::from_json("{\"format\": \"x\"}").is_err());
     let md = cost_markdown(&report);
     assert!(md.contains(&report.cpu) && md.contains(&report.instruction_set));
+    for debug_form in ["Some(", "None", "Avx", "Baseline", " { "] {
+        assert!(!md.contains(debug_form), "{debug_form} in\n{md}");
+    }
     assert_eq!(md.lines().filter(|l| l.starts_with("| ")).count(), 1 + 4);
     let svg = plot_cost(&report);
     assert!(svg.starts_with("<svg") && svg.trim_end().ends_with("</svg>"));

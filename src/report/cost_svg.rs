@@ -10,7 +10,7 @@ use std::fmt::Write as _;
 /// Header lines naming the machine and the method.
 fn header(report: &CostReport) -> String {
     format!(
-        "CPU: {} (kernels: {}). Architecture: {}; training batch {}, batch prediction {} rows; \
+        "CPU: {}; kernels: {}.\nArchitecture: {}; training batch {}, batch prediction {} rows; \
          {} interleaved rounds on one thread.\nClock: {}.\nIntervals: {}.\n",
         report.cpu,
         report.instruction_set,

@@ -398,6 +398,16 @@ pub fn median_with_interval(samples: &[f64]) -> Option<Interval> {
     })
 }
 
+/// The instruction set the kernels run with, in words.
+pub fn instruction_set() -> &'static str {
+    use crate::kernels::Simd;
+    match crate::kernels::simd_level() {
+        Simd::Avx512 => "AVX-512F with AVX2 and FMA",
+        Simd::Avx2 => "AVX2 with FMA",
+        Simd::Baseline => "baseline (SSE2 on x86-64)",
+    }
+}
+
 /// The CPU model name, from /proc/cpuinfo where there is one, else the architecture.
 pub fn cpu_name() -> String {
     std::fs::read_to_string("/proc/cpuinfo")
@@ -732,7 +742,7 @@ pub fn measure(
         format: COST_FORMAT.into(),
         version: COST_VERSION,
         cpu: cpu_name(),
-        instruction_set: format!("{:?}", crate::kernels::simd_level()),
+        instruction_set: instruction_set().into(),
         clock: ThreadClock::describe().into(),
         architecture: describe_architecture(model),
         batch: options.batch,
