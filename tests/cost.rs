@@ -415,3 +415,43 @@ fn the_command_refuses_what_it_cannot_do() {
     }
     std::fs::remove_dir_all(dir).ok();
 }
+
+#[test]
+fn the_command_writes_report_table_and_accuracy_chart() {
+    let dir = std::env::temp_dir().join(format!("relume-cost-out-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let at = |name: &str| dir.join(name).to_str().unwrap().to_string();
+    std::fs::write(at("cmp.json"), hand_sweep().to_json()).unwrap();
+    let (code, err) = relume(&[
+        "cost",
+        "--inputs",
+        "3",
+        "--layers",
+        "8,8",
+        "--activations",
+        "gelu,tanh",
+        "--rounds",
+        "6",
+        "--accuracy",
+        &at("cmp.json"),
+        "--report",
+        &at("c.json"),
+        "--table",
+        &at("c.md"),
+        "--plot",
+        &at("c.svg"),
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let report = CostReport::from_json(&std::fs::read_to_string(at("c.json")).unwrap()).unwrap();
+    let names: Vec<&str> = report
+        .candidates
+        .iter()
+        .map(|c| c.activation.as_str())
+        .collect();
+    assert_eq!(names, ["relu", "gelu", "tanh"]);
+    let md = std::fs::read_to_string(at("c.md")).unwrap();
+    assert!(md.contains("validation RMSE") && md.contains(&report.cpu));
+    let svg = std::fs::read_to_string(at("c.svg")).unwrap();
+    assert!(svg.contains("Accuracy against single-row prediction cost"));
+    std::fs::remove_dir_all(dir).ok();
+}

@@ -492,7 +492,7 @@ fn activation_width(specs: &[LayerSpec]) -> usize {
         .sum()
 }
 
-/// "10 inputs → 64 → 64 → 1, 5 networks (each timed in the row path)".
+/// The architecture in words, e.g. "10 inputs → 64 → 64 → 1, 5 networks".
 pub fn describe_architecture(model: &Model) -> String {
     let net = &model.members[0];
     let mut widths = vec![format!("{} inputs", net.input_width())];
