@@ -271,14 +271,19 @@ pub fn plot_accuracy_cost(pairs: &[AccuracyCost], report: &CostReport) -> String
             TRAIN_COLOUR
         };
         let (x, y) = (x_of(p.row_predict.median), y_of(p.rmse));
+        // Labels of points in the right half go to their left, so they stay in the picture.
+        let (label_x, anchor) = if x > left + pw / 2.0 {
+            (x - 7.0, "end")
+        } else {
+            (x + 7.0, "start")
+        };
         let _ = writeln!(
             svg,
-            r#"<line x1="{:.1}" x2="{:.1}" y1="{y:.1}" y2="{y:.1}" stroke="{colour}" stroke-width="1.5"/><line x1="{x:.1}" x2="{x:.1}" y1="{:.1}" y2="{:.1}" stroke="{colour}" stroke-width="1.5"/><circle cx="{x:.1}" cy="{y:.1}" r="4.5" fill="{colour}"/><text x="{:.1}" y="{:.1}" font-size="12">{}</text>"#,
+            r#"<line x1="{:.1}" x2="{:.1}" y1="{y:.1}" y2="{y:.1}" stroke="{colour}" stroke-width="1.5"/><line x1="{x:.1}" x2="{x:.1}" y1="{:.1}" y2="{:.1}" stroke="{colour}" stroke-width="1.5"/><circle cx="{x:.1}" cy="{y:.1}" r="4.5" fill="{colour}"/><text x="{label_x:.1}" y="{:.1}" font-size="12" text-anchor="{anchor}">{}</text>"#,
             x_of(p.row_predict.lo),
             x_of(p.row_predict.hi),
             y_of(p.rmse_ci95.0),
             y_of(p.rmse_ci95.1),
-            x + 7.0,
             y - 7.0,
             escape(&p.label)
         );
