@@ -351,13 +351,13 @@ fn compare_writes_table_report_and_chart_and_shards_merge() {
     let list = parts.join(",");
     let o = relume(&["merge", "--reports", &list, "--table", &merged]);
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
-    // Same runs, same table except the wall times.
+    // Same runs, same table except the wall and CPU times.
     let strip = |t: &str| -> Vec<String> {
         t.lines()
             .map(|l| {
                 l.split('|')
                     .enumerate()
-                    .filter(|(k, _)| *k != 9)
+                    .filter(|(k, _)| !matches!(k, 9 | 10))
                     .map(|(_, c)| c.to_string())
                     .collect::<Vec<_>>()
                     .join("|")

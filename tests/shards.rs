@@ -335,12 +335,13 @@ fn spec() -> EncoderSpec {
     }
 }
 
-/// Results without wall times, which differ from run to run.
+/// Results without wall and CPU times, which differ from run to run.
 fn untimed(r: &SweepReport) -> Vec<RunResult> {
     r.runs
         .iter()
         .map(|x| RunResult {
             seconds_per_epoch: 0.0,
+            cpu_seconds_per_epoch: None,
             ..x.clone()
         })
         .collect()

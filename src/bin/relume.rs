@@ -60,6 +60,55 @@ enum Command {
         after_help = "Example:\n  relume merge --reports part0.json,part1.json,part2.json --report cmp.json --table cmp.md --plot cmp.svg"
     )]
     Merge(MergeArgs),
+    /// Time a training step, a batch prediction and a single-row prediction for each
+    /// activation on this CPU, with intervals and ratios to ReLU.
+    #[command(
+        after_help = "Examples:\n  relume cost --inputs 10 --layers 64,64 --activations relu,gelu,elu,tanh --table cost.md --plot cost.svg\n  relume cost --model cold.json --activations relu,leaky-relu,elu,gelu,tanh --accuracy cmp.json --plot pick.svg"
+    )]
+    Cost(CostArgs),
+}
+
+#[derive(Args, Debug)]
+struct CostArgs {
+    /// Time the architecture of this model file (its columns, scaling and networks).
+    #[arg(long, value_name = "MODEL", conflicts_with_all = ["inputs", "layers"], required_unless_present = "inputs")]
+    model: Option<PathBuf>,
+    /// Input width of the architecture to time (with --layers).
+    #[arg(long, value_name = "N", requires = "layers")]
+    inputs: Option<usize>,
+    /// Hidden layer widths of the architecture to time (with --inputs).
+    #[arg(long, value_delimiter = ',', value_name = "64,64", requires = "inputs")]
+    layers: Option<Vec<usize>>,
+    /// Activations to time (ReLU is always timed: the ratios are to it).
+    #[arg(
+        long,
+        value_delimiter = ',',
+        value_name = "relu,gelu,..",
+        required = true
+    )]
+    activations: Vec<Activation>,
+    /// Rows per training step (the training batch size).
+    #[arg(long, default_value_t = 32)]
+    batch: usize,
+    /// Rows per batch prediction.
+    #[arg(long, default_value_t = 1024, value_name = "N")]
+    predict_rows: usize,
+    /// Interleaved rounds (at least 6).
+    #[arg(long, default_value_t = 31)]
+    rounds: usize,
+    /// A compare report: adds its validation RMSE beside the cost, and the chart becomes
+    /// accuracy against single-row prediction cost.
+    #[arg(long, value_name = "CMP.json")]
+    accuracy: Option<PathBuf>,
+    /// Write the JSON report here.
+    #[arg(long, value_name = "C.json")]
+    report: Option<PathBuf>,
+    /// Write the Markdown table here.
+    #[arg(long = "table", value_name = "C.md")]
+    table_out: Option<PathBuf>,
+    /// Write the SVG chart here.
+    #[arg(long, value_name = "C.svg")]
+    plot: Option<PathBuf>,
 }
 
 #[derive(Args, Debug)]
@@ -497,6 +546,7 @@ fn main() -> ExitCode {
         Command::Inspect(a) => inspect(a),
         Command::Compare(a) => compare(*a),
         Command::Merge(a) => merge(a),
+        Command::Cost(a) => cost(a),
     });
     match outcome {
         Ok(Ok(())) => ExitCode::SUCCESS,
@@ -1273,7 +1323,9 @@ fn write_outputs(
         return Ok(());
     }
     let comparison = relume::sweep::compare::summarize(report).map_err(Failure::User)?;
-    let md = relume::sweep::compare::markdown(&comparison);
+    let md = relume::sweep::compare::markdown(&comparison)
+        + "\n"
+        + &relume::sweep::compare::cost_footnote(&comparison);
     println!("{md}");
     if let Some(path) = table {
         relume::serve::atomic::write_atomic(path, md.as_bytes())
@@ -1366,4 +1418,65 @@ fn merge(a: MergeArgs) -> Result<(), Failure> {
     }
     let merged = relume::sweep::compare::merge(&parts).map_err(|e| Failure::User(e.to_string()))?;
     write_outputs(&merged, &a.outputs)
+}
+
+fn cost(a: CostArgs) -> Result<(), Failure> {
+    use relume::report::cost_svg;
+    use relume::sweep::{compare, cost};
+    let outputs = [
+        ("--report", a.report.as_deref()),
+        ("--table", a.table_out.as_deref()),
+        ("--plot", a.plot.as_deref()),
+    ];
+    check_outputs(&outputs)?;
+    let user = |e: String| Failure::User(e);
+    let accuracy = match &a.accuracy {
+        Some(path) => {
+            let text = std::fs::read_to_string(path).map_err(|e| io_failure(path, e))?;
+            let at = |e: String| Failure::User(format!("{}: {e}", path.display()));
+            let sweep = compare::SweepReport::from_json(&text).map_err(at)?;
+            let summary = compare::summarize(&sweep).map_err(at)?;
+            Some((sweep, summary))
+        }
+        None => None,
+    };
+    let model = match (&a.model, a.inputs, &a.layers) {
+        (Some(path), _, _) => Model::load(path)?,
+        (None, Some(n), Some(layers)) => {
+            cost::model_for_inputs(n, layers, 0).map_err(|e| user(e.to_string()))?
+        }
+        _ => return Err(user("give --model, or --inputs with --layers".into())),
+    };
+    let options = cost::CostOptions {
+        batch: a.batch,
+        predict_rows: a.predict_rows,
+        rounds: a.rounds,
+        ..cost::CostOptions::default()
+    };
+    eprintln!(
+        "timing {} on {}, {} rounds (keep the machine otherwise idle)",
+        cost::describe_architecture(&model),
+        cost::cpu_name(),
+        a.rounds
+    );
+    let report =
+        cost::measure(&model, &a.activations, &options).map_err(|e| user(e.to_string()))?;
+    let mut md = cost_svg::cost_markdown(&report);
+    let svg = match &accuracy {
+        Some((sweep, summary)) => {
+            let (pairs, missing) = cost::pair_with_accuracy(&report, summary, sweep);
+            md += &format!("\n{}", cost_svg::accuracy_cost_markdown(&pairs, &missing));
+            cost_svg::plot_accuracy_cost(&pairs, &report)
+        }
+        None => cost_svg::plot_cost(&report),
+    };
+    println!("{md}");
+    for ((option, path), text) in outputs.iter().zip([report.to_json(), md, svg]) {
+        if let Some(path) = path {
+            relume::serve::atomic::write_atomic(path, text.as_bytes())
+                .map_err(|e| io_failure(path, e))?;
+            eprintln!("{} written to {}", &option[2..], path.display());
+        }
+    }
+    Ok(())
 }

@@ -5,6 +5,7 @@
 //! per layer `dead_fraction`, `zero_fraction`, `dormant_fraction`, `grad_norm`) are read by
 //! outside tools: keep them.
 
+pub mod cost_svg;
 mod svg;
 
 pub use svg::{plot_comparison, plot_run, PlotOptions};

@@ -26,8 +26,8 @@ impl Default for PlotOptions {
     }
 }
 
-const TRAIN_COLOUR: &str = "#1b6ca8";
-const VAL_COLOUR: &str = "#c8553d";
+pub(super) const TRAIN_COLOUR: &str = "#1b6ca8";
+pub(super) const VAL_COLOUR: &str = "#c8553d";
 const LAYER_COLOURS: [&str; 6] = [
     "#2a9d8f", "#7b2cbf", "#e9a23b", "#6c757d", "#bc4b51", "#3d5a80",
 ];
@@ -127,7 +127,7 @@ impl Panel {
 }
 
 /// About five round tick values covering [lo, hi] (powers of ten on a log axis).
-fn ticks(lo: f64, hi: f64, log: bool) -> Vec<f64> {
+pub(super) fn ticks(lo: f64, hi: f64, log: bool) -> Vec<f64> {
     if log {
         let (a, b) = (lo.log10().floor() as i32, hi.log10().ceil() as i32);
         return (a..=b)
@@ -152,7 +152,7 @@ fn ticks(lo: f64, hi: f64, log: bool) -> Vec<f64> {
     out
 }
 
-fn label(v: f64) -> String {
+pub(super) fn label(v: f64) -> String {
     if v != 0.0 && (v.abs() < 1e-2 || v.abs() >= 1e4) {
         format!("{v:.0e}")
     } else if v.fract() == 0.0 {

@@ -16,6 +16,7 @@ use crate::nn::activation::Activation;
 use crate::nn::init::Init;
 use crate::serve::model::{FitError, Model};
 use crate::serve::predict::Predictor;
+use crate::sweep::cost::thread_cpu_seconds;
 use crate::sweep::shard::Invocation;
 use crate::sweep::stats::{mean_sd_ci95, wilcoxon};
 use serde::{Deserialize, Serialize};
@@ -179,8 +180,14 @@ pub struct RunResult {
     pub best_epoch: usize,
     /// Epochs run.
     pub epochs: usize,
-    /// Wall time per epoch, in seconds.
+    /// Wall time per epoch, in seconds (other cells run at the same time: see
+    /// `cpu_seconds_per_epoch`).
     pub seconds_per_epoch: f64,
+    /// CPU time of the thread that trained the cell, per epoch, in seconds: what the cell
+    /// itself cost, whatever ran beside it ([`COST_CLOCK`]). None where the system has no
+    /// per-thread clock, for diverged runs and in reports from before it existed.
+    #[serde(default)]
+    pub cpu_seconds_per_epoch: Option<f64>,
     /// Mean dead fraction of the hidden layers at the end.
     pub dead_fraction: f64,
     /// Mean exact-zero fraction of the hidden layers at the end.
@@ -208,7 +215,18 @@ pub struct SweepReport {
     /// The command that ran this report (None in a merged report), for rerunning missing shards.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub invocation: Option<Invocation>,
+    /// How `cpu_seconds_per_epoch` was measured ([`COST_CLOCK`]; None in reports from before
+    /// it existed).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub cost_clock: Option<String>,
 }
+
+/// How a cell's training cost is measured, as reports and tables say it.
+pub const COST_CLOCK: &str = "CPU time of the thread that trained the cell \
+     (clock_gettime CLOCK_THREAD_CPUTIME_ID) from the start of Model::fit to its end, per \
+     epoch; a cell trains one network on one thread, so cells running at the same time do not \
+     add their time to it (they can still slow it through shared caches and memory); kernel \
+     helper threads (RELUME_THREADS > 1) are not counted";
 
 impl SweepReport {
     /// Pretty JSON.
@@ -272,6 +290,7 @@ pub fn run(
         runs,
         data: Some(data_digest(table, spec)),
         invocation: None,
+        cost_clock: crate::sweep::cost::thread_cpu_seconds().map(|_| COST_CLOCK.to_string()),
     })
 }
 
@@ -348,6 +367,7 @@ fn run_cell(
     };
     let recipe = cell_recipe(&overrides, truth.len());
     let started = Instant::now();
+    let cpu_start = thread_cpu_seconds();
     let fitted = Model::fit(
         &table.select(train_rows),
         spec,
@@ -355,6 +375,9 @@ fn run_cell(
         MonitorConfig::default(),
     );
     let seconds = started.elapsed().as_secs_f64();
+    let cpu_seconds = cpu_start
+        .zip(thread_cpu_seconds())
+        .map(|(a, b)| (b - a).max(0.0));
     let (model, report) = match fitted {
         Ok(m) => m,
         Err(FitError::Train(e @ TrainError::Diverged { .. })) => {
@@ -366,6 +389,7 @@ fn run_cell(
                 best_epoch: 0,
                 epochs: 0,
                 seconds_per_epoch: 0.0,
+                cpu_seconds_per_epoch: None,
                 dead_fraction: 0.0,
                 zero_fraction: 0.0,
                 diverged: Some(e.to_string()),
@@ -398,6 +422,7 @@ fn run_cell(
         best_epoch: model.summary.best_epoch,
         epochs: model.summary.epochs_run,
         seconds_per_epoch: seconds / epochs as f64,
+        cpu_seconds_per_epoch: cpu_seconds.map(|c| c / epochs as f64),
         dead_fraction: mean_of(|l| l.dead_fraction),
         zero_fraction: mean_of(|l| l.zero_fraction),
         diverged: None,
@@ -692,6 +717,12 @@ pub struct CandidateSummary {
     pub median_best_epoch: f64,
     /// Mean wall time per epoch, seconds.
     pub seconds_per_epoch: f64,
+    /// Mean CPU time of the cell's thread per epoch, seconds (None when no run has one).
+    #[serde(default)]
+    pub cpu_seconds_per_epoch: Option<f64>,
+    /// 95% Student-t interval of that mean over the runs (None with fewer than 2).
+    #[serde(default)]
+    pub cpu_ci95: Option<(f64, f64)>,
     /// Mean final dead fraction.
     pub dead_fraction: f64,
     /// Mean final zero fraction.
@@ -711,6 +742,9 @@ pub struct Comparison {
     pub best: usize,
     /// Seeds × folds per candidate.
     pub runs_per_candidate: usize,
+    /// How the CPU time per epoch was measured (the report's `cost_clock`).
+    #[serde(default)]
+    pub cost_clock: Option<String>,
 }
 
 /// Summarizes a full (merged or unsharded) sweep report.
@@ -770,6 +804,8 @@ pub fn summarize(report: &SweepReport) -> Result<Comparison, String> {
             }
         });
         let verdict = verdict(c == best, versus_best.as_ref(), runs.len() - ok.len());
+        let cpu: Vec<f64> = ok.iter().filter_map(|r| r.cpu_seconds_per_epoch).collect();
+        let (cpu_mean, _, cpu_half) = mean_sd_ci95(&cpu);
         summaries.push(CandidateSummary {
             label: report.plan.candidates[c].label.clone(),
             runs: ok.len(),
@@ -779,6 +815,8 @@ pub fn summarize(report: &SweepReport) -> Result<Comparison, String> {
             ci95: (mean - half, mean + half),
             median_best_epoch: crate::serve::metrics::quantile(&epochs, 0.5),
             seconds_per_epoch: avg(|r| r.seconds_per_epoch),
+            cpu_seconds_per_epoch: (!cpu.is_empty()).then_some(cpu_mean),
+            cpu_ci95: (cpu.len() >= 2).then_some((cpu_mean - cpu_half, cpu_mean + cpu_half)),
             dead_fraction: avg(|r| r.dead_fraction),
             zero_fraction: avg(|r| r.zero_fraction),
             versus_best,
@@ -789,6 +827,7 @@ pub fn summarize(report: &SweepReport) -> Result<Comparison, String> {
         candidates: summaries,
         best,
         runs_per_candidate: report.plan.seeds * report.plan.fold_count(),
+        cost_clock: report.cost_clock.clone(),
     })
 }
 
@@ -836,7 +875,7 @@ fn verdict(is_best: bool, paired: Option<&Paired>, diverged: usize) -> String {
 /// The comparison as a Markdown table.
 pub fn markdown(c: &Comparison) -> String {
     let mut s = String::from(
-        "| candidate | runs | diverged | validation RMSE (mean ± sd) | 95% CI | Δ vs best (95% CI) | p | median best epoch | ms / epoch | dead | zero | verdict |\n|---|---|---|---|---|---|---|---|---|---|---|---|\n",
+        "| candidate | runs | diverged | validation RMSE (mean ± sd) | 95% CI | Δ vs best (95% CI) | p | median best epoch | ms / epoch | thread CPU ms / epoch (95% CI) | dead | zero | verdict |\n|---|---|---|---|---|---|---|---|---|---|---|---|---|\n",
     );
     for (i, x) in c.candidates.iter().enumerate() {
         let (delta, p) = match &x.versus_best {
@@ -854,8 +893,15 @@ pub fn markdown(c: &Comparison) -> String {
         } else {
             x.label.clone()
         };
+        let cpu = match (x.cpu_seconds_per_epoch, x.cpu_ci95) {
+            (Some(m), Some((lo, hi))) => {
+                format!("{:.2} ({:.2} to {:.2})", 1e3 * m, 1e3 * lo, 1e3 * hi)
+            }
+            (Some(m), None) => format!("{:.2}", 1e3 * m),
+            _ => "—".to_string(),
+        };
         s += &format!(
-            "| {name} | {} | {} | {:.4} ± {:.4} | {:.4} to {:.4} | {delta} | {p} | {:.0} | {:.2} | {:.1}% | {:.1}% | {} |\n",
+            "| {name} | {} | {} | {:.4} ± {:.4} | {:.4} to {:.4} | {delta} | {p} | {:.0} | {:.2} | {cpu} | {:.1}% | {:.1}% | {} |\n",
             x.runs,
             x.diverged,
             x.mean_rmse,
@@ -870,6 +916,16 @@ pub fn markdown(c: &Comparison) -> String {
         );
     }
     s
+}
+
+/// The note under the table saying how its two cost columns were measured.
+pub fn cost_footnote(c: &Comparison) -> String {
+    format!(
+        "ms / epoch: wall time, measured while other cells ran. Thread CPU ms / epoch: {}.\n",
+        c.cost_clock
+            .as_deref()
+            .unwrap_or("not measured (no per-thread clock, or an older report)")
+    )
 }
 
 #[cfg(test)]

@@ -2,5 +2,6 @@
 //! for cluster schedulers.
 
 pub mod compare;
+pub mod cost;
 pub mod shard;
 pub mod stats;
