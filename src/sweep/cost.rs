@@ -14,7 +14,7 @@
 //! a per-thread clock, so time the thread spends descheduled does not count; elsewhere wall
 //! time. The same clock measures `compare`'s per-cell training cost.
 
-use crate::data::{Cell, EncoderSpec, FeatureEncoding, ReadOptions, Table};
+use crate::data::{Cell, Column, ColumnData, EncoderSpec, FeatureEncoding, Table};
 use crate::fit::monitor::MonitorConfig;
 use crate::fit::optim::{Adam, Optimizer};
 use crate::fit::recipe::Recipe;
@@ -436,18 +436,33 @@ pub fn model_for_inputs(inputs: usize, hidden: &[usize], seed: u64) -> Result<Mo
         )));
     }
     let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
-    let names: Vec<String> = (1..=inputs).map(|j| format!("x{j}")).collect();
-    let mut csv = names.join(",") + ",y\n";
-    for _ in 0..64 {
-        let x: Vec<f64> = (0..inputs)
-            .map(|_| StandardNormal.sample(&mut rng))
-            .collect();
-        let y: f64 = x.iter().map(|v| v.sin()).sum();
-        let cells: Vec<String> = x.iter().map(|v| format!("{v:.6}")).collect();
-        csv += &format!("{},{y:.6}\n", cells.join(","));
+    const ROWS: usize = 64;
+    let mut columns: Vec<Vec<f64>> = vec![Vec::with_capacity(ROWS); inputs + 1];
+    for _ in 0..ROWS {
+        let mut y = 0.0;
+        for column in columns.iter_mut().take(inputs) {
+            let v: f64 = StandardNormal.sample(&mut rng);
+            y += v.sin();
+            column.push(v);
+        }
+        columns[inputs].push(y);
     }
-    let table = Table::read(csv.as_bytes(), "synthetic", &ReadOptions::default())
-        .map_err(FitError::from)?;
+    let table = Table {
+        source: "synthetic".to_string(),
+        columns: columns
+            .into_iter()
+            .enumerate()
+            .map(|(j, data)| Column {
+                name: if j < inputs {
+                    format!("x{}", j + 1)
+                } else {
+                    "y".to_string()
+                },
+                data: ColumnData::Number(data),
+            })
+            .collect(),
+        lines: (2..ROWS as u64 + 2).collect(),
+    };
     let spec = EncoderSpec {
         target: "y".into(),
         ..EncoderSpec::default()
