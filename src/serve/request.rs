@@ -73,6 +73,16 @@ pub fn predict_json(
         let p = predictor
             .predict_row(&cells, &mut scratch)
             .map_err(|e| malformed(format!("row {i}: {}", predictor.explain(&e))))?;
+        if ![Some(p.value), p.lower, p.upper]
+            .iter()
+            .all(|v| v.is_none_or(f64::is_finite))
+        {
+            // JSON has no infinity: refuse rather than answer null.
+            return Err(malformed(format!(
+                "row {i}: the prediction is not a finite number (inputs far outside the \
+                 training range)"
+            )));
+        }
         let flagged = |flags: &[bool]| -> Vec<&str> {
             names
                 .iter()
