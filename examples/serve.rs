@@ -9,7 +9,7 @@
 //!
 //! - POST /predict: `{"rows": [{column: value, ...}, ...]}` (parsed and predicted by
 //!   `relume::serve::request::predict_json`); a malformed request gets 400 with the reason, a
-//!   body over [`Limits::body_bytes`] 413, more rows than [`Limits::rows`] 413, a request not
+//!   body over [`Limits::body_bytes`] 413, more rows than [`Limits::rows`] 422, a request not
 //!   done within [`Limits::timeout`] 408, and more than [`Limits::in_flight`] requests at
 //!   once 503 (with `Retry-After`). Every error body is `{"error": reason}`.
 //! - GET /health: the model's feature names, the file and how many times it was loaded.
@@ -250,7 +250,7 @@ async fn predict(
             Json(predictions).into_response()
         }
         Ok(Err(e @ RequestError::TooManyRows { .. })) => {
-            error(StatusCode::PAYLOAD_TOO_LARGE, e.to_string())
+            error(StatusCode::UNPROCESSABLE_ENTITY, e.to_string())
         }
         Ok(Err(e)) => error(StatusCode::BAD_REQUEST, e.to_string()),
         Err(e) => error(

@@ -1,5 +1,5 @@
 //! The example HTTP service (examples/serve.rs), started in-process on free loopback ports:
-//! good and malformed requests, the limits (413, 503, 408), graceful shutdown, model reload,
+//! good and malformed requests, the limits (413, 422, 503, 408), graceful shutdown, model reload,
 //! and its OpenAPI description (examples/serve.openapi.json). Every response any scenario
 //! gets is checked against the description (status documented for the path and method, body
 //! fields and types as described), and every documented status must be seen.
@@ -316,7 +316,7 @@ async fn slow_request(port: u16, body: &str) -> TcpStream {
 
 const ONE_ROW: &str = r#"{"rows":[{"x":2.0,"kind":"b"}]}"#;
 
-/// Body and row limits (413), one slot taken (503), a request that never finishes (408).
+/// Body and row limits (413, 422), one slot taken (503), a request that never finishes (408).
 async fn limits(service: &Running) {
     let big = format!(r#"{{"rows":[{{"x":1,"kind":"{}"}}]}}"#, "a".repeat(2000));
     let a = service.send("POST", "/predict", &big).await;
@@ -324,7 +324,7 @@ async fn limits(service: &Running) {
     assert!(a.body["error"].as_str().unwrap().contains("over 1000 bytes"));
     let rows = format!(r#"{{"rows":[{}]}}"#, [r#"{"x":2.0,"kind":"b"}"#; 4].join(","));
     let a = service.send("POST", "/predict", &rows).await;
-    assert_eq!(a.status, 413, "{rows}: {}", a.body);
+    assert_eq!(a.status, 422, "{rows}: {}", a.body);
     assert!(
         a.body["error"].as_str().unwrap().contains("4 rows; at most 3"),
         "{}",
