@@ -97,7 +97,10 @@ impl Service {
     }
 
     fn current(&self) -> Arc<Loaded> {
-        self.current.read().expect("no panic while swapping").clone()
+        self.current
+            .read()
+            .expect("no panic while swapping")
+            .clone()
     }
 
     /// Reads the model file again and swaps it in if it loads and takes the same columns;
@@ -136,7 +139,10 @@ impl Service {
 /// The service's routes.
 pub fn app(service: Arc<Service>) -> Router {
     let predict_route = post(predict)
-        .layer::<_, std::convert::Infallible>(middleware::from_fn_with_state(service.clone(), guard))
+        .layer::<_, std::convert::Infallible>(middleware::from_fn_with_state(
+            service.clone(),
+            guard,
+        ))
         .layer(DefaultBodyLimit::max(service.limits.body_bytes));
     Router::new()
         .route("/health", get(health))
@@ -183,7 +189,10 @@ async fn guard(State(service): State<Arc<Service>>, request: Request, next: Next
         Ok(response) => response,
         Err(_) => error(
             StatusCode::REQUEST_TIMEOUT,
-            format!("the request was not complete within {} s", limit.as_secs_f64()),
+            format!(
+                "the request was not complete within {} s",
+                limit.as_secs_f64()
+            ),
         ),
     }
 }
@@ -296,7 +305,9 @@ async fn main() -> Result<(), Box<dyn std::error::Error>> {
         }
     });
     let listener = tokio::net::TcpListener::bind(&address).await?;
-    println!("serving {model} on http://{address} (POST /predict, GET /health, POST /admin/reload)");
+    println!(
+        "serving {model} on http://{address} (POST /predict, GET /health, POST /admin/reload)"
+    );
     run(listener, service, stop_signal()).await?;
     eprintln!("stopped");
     Ok(())

@@ -56,7 +56,10 @@ pub fn predict_request(data: &[u8]) -> bool {
     let Ok(answer) = predict_json(&fixed().1, data, 1000) else {
         return false;
     };
-    for row in answer["predictions"].as_array().expect("a predictions array") {
+    for row in answer["predictions"]
+        .as_array()
+        .expect("a predictions array")
+    {
         assert!(row["prediction"].is_f64(), "{answer}");
     }
     true

@@ -14,7 +14,10 @@ fn mutated_inputs_never_panic() {
         let (runs, accepted, crashes) = fuzz_inputs::fuzz(target, Duration::from_secs(2), seed);
         println!("{target}: {runs} executions, {accepted} accepted, {crashes} crashes");
         assert!(runs > 1000, "{target}: {runs}");
-        assert!(accepted > 0, "{target}: the mutations never reached past the parser");
+        assert!(
+            accepted > 0,
+            "{target}: the mutations never reached past the parser"
+        );
         assert_eq!(crashes, 0);
     }
 }
@@ -25,7 +28,10 @@ fn every_target_accepts_some_of_its_seeds() {
     // the parser, or the mutations would only test its first error.
     for target in fuzz_inputs::TARGETS {
         let seeds = fuzz_inputs::seeds(target);
-        let accepted = seeds.iter().filter(|s| fuzz_inputs::parse(target, s)).count();
+        let accepted = seeds
+            .iter()
+            .filter(|s| fuzz_inputs::parse(target, s))
+            .count();
         println!("{target}: {accepted} of {} seeds accepted", seeds.len());
         assert!(accepted > 0, "{target}");
     }

@@ -286,10 +286,19 @@ async fn requests_and_refusals(service: &Running) {
         ("{not json", "not JSON"),
         (r#"{"lines":[]}"#, "\"rows\""),
         (r#"{"rows":[{"x":1.0}]}"#, "'kind' is empty"),
-        (r#"{"rows":[{"x":"one","kind":"a"}]}"#, "'x' must be a number"),
-        (r#"{"rows":[{"x":[1],"kind":"a"}]}"#, "number, a string or null"),
+        (
+            r#"{"rows":[{"x":"one","kind":"a"}]}"#,
+            "'x' must be a number",
+        ),
+        (
+            r#"{"rows":[{"x":[1],"kind":"a"}]}"#,
+            "number, a string or null",
+        ),
         (r#"{"rows":[3]}"#, "row 0 is not an object"),
-        (r#"{"rows":[{"x":1e999,"kind":"a"}]}"#, "number out of range"),
+        (
+            r#"{"rows":[{"x":1e999,"kind":"a"}]}"#,
+            "number out of range",
+        ),
     ] {
         let a = service.send("POST", "/predict", request).await;
         assert_eq!(a.status, 400, "{request}: {}", a.body);
@@ -321,12 +330,21 @@ async fn limits(service: &Running) {
     let big = format!(r#"{{"rows":[{{"x":1,"kind":"{}"}}]}}"#, "a".repeat(2000));
     let a = service.send("POST", "/predict", &big).await;
     assert_eq!(a.status, 413);
-    assert!(a.body["error"].as_str().unwrap().contains("over 1000 bytes"));
-    let rows = format!(r#"{{"rows":[{}]}}"#, [r#"{"x":2.0,"kind":"b"}"#; 4].join(","));
+    assert!(a.body["error"]
+        .as_str()
+        .unwrap()
+        .contains("over 1000 bytes"));
+    let rows = format!(
+        r#"{{"rows":[{}]}}"#,
+        [r#"{"x":2.0,"kind":"b"}"#; 4].join(",")
+    );
     let a = service.send("POST", "/predict", &rows).await;
     assert_eq!(a.status, 422, "{rows}: {}", a.body);
     assert!(
-        a.body["error"].as_str().unwrap().contains("4 rows; at most 3"),
+        a.body["error"]
+            .as_str()
+            .unwrap()
+            .contains("4 rows; at most 3"),
         "{}",
         a.body
     );
@@ -374,14 +392,23 @@ async fn reload(service: &Running, path: &Path) {
     let reason = a.body["error"].as_str().unwrap();
     assert!(reason.contains("kept the model serving now"), "{reason}");
     assert!(reason.contains(&path.display().to_string()), "{reason}");
-    let renamed = other.to_json().replace("\"name\":\"kind\"", "\"name\":\"sort\"");
+    let renamed = other
+        .to_json()
+        .replace("\"name\":\"kind\"", "\"name\":\"sort\"");
     assert!(renamed.contains("sort"));
     std::fs::write(path, renamed).unwrap();
     let a = service.send("POST", "/admin/reload", "").await;
     assert_eq!(a.status, 422, "{}", a.body);
-    assert!(a.body["error"].as_str().unwrap().contains("columns"), "{}", a.body);
+    assert!(
+        a.body["error"].as_str().unwrap().contains("columns"),
+        "{}",
+        a.body
+    );
     assert_eq!(service.send("POST", "/predict", ONE_ROW).await.body, after);
-    assert_eq!(service.send("GET", "/health", "").await.body["generation"], 2);
+    assert_eq!(
+        service.send("GET", "/health", "").await.body["generation"],
+        2
+    );
 }
 
 /// Removes the test's model files however the test ends.
@@ -398,7 +425,10 @@ impl Drop for Files {
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn the_service_keeps_its_limits_and_its_openapi_description() {
     let model = fitted_model();
-    let files = Files(vec![model_file("a.json", &model), model_file("b.json", &model)]);
+    let files = Files(vec![
+        model_file("a.json", &model),
+        model_file("b.json", &model),
+    ]);
     let seen = Arc::new(Seen::default());
     let checks = async {
         let (service, stop, server) = start(&files.0[0], Limits::default(), seen.clone()).await;
@@ -431,7 +461,11 @@ async fn the_service_keeps_its_limits_and_its_openapi_description() {
             }
         }
     }
-    assert_eq!(*seen.lock().unwrap(), documented, "statuses seen vs. described");
+    assert_eq!(
+        *seen.lock().unwrap(),
+        documented,
+        "statuses seen vs. described"
+    );
 }
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
@@ -444,7 +478,7 @@ async fn shutdown_finishes_the_requests_in_flight() {
     tokio::time::sleep(Duration::from_millis(200)).await;
     assert!(!server.is_finished(), "a request is still in flight");
     let half = ONE_ROW.len() / 2;
-    slow.write_all(ONE_ROW[half..].as_bytes()).await.unwrap();
+    slow.write_all(&ONE_ROW.as_bytes()[half..]).await.unwrap();
     let a = service.answer(slow, "POST", "/predict").await;
     assert_eq!(a.status, 200, "{}", a.body);
     tokio::time::timeout(Duration::from_secs(10), server)
@@ -452,5 +486,7 @@ async fn shutdown_finishes_the_requests_in_flight() {
         .expect("the service stopped after its last request")
         .unwrap()
         .unwrap();
-    assert!(TcpStream::connect(("127.0.0.1", service.port)).await.is_err());
+    assert!(TcpStream::connect(("127.0.0.1", service.port))
+        .await
+        .is_err());
 }
