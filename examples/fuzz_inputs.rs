@@ -1,46 +1,35 @@
-//! Seeded random-input harness for the two parsers that meet untrusted bytes: the model-file
-//! loader and the CSV reader. (cargo-fuzz needs a nightly compiler, which this project does not
-//! use; this harness mutates valid inputs instead: byte flips, inserts, deletes, truncations,
-//! splices and number swaps.) Any panic is a bug: the input is written to
+//! Seeded mutation harness for the inputs that meet untrusted bytes, on stable Rust: the same
+//! three targets as the coverage-guided fuzz crate (fuzz/targets.rs: model file, CSV through a
+//! fixed model's encoding, the service's request body), started from the same seeds
+//! (fuzz/seeds/), with byte flips, inserts, deletes, truncations, splices and number swaps.
+//! It has no coverage feedback; what it adds is that it runs in every `cargo test`
+//! (tests/fuzz_smoke.rs), without nightly. Any panic is a bug: the input is written to
 //! tests/data/fuzz/ and the run fails.
 //!
-//! Run: `cargo run --release --example fuzz_inputs -- [model|csv] SECONDS [SEED]`.
+//! Run: `cargo run --release --example fuzz_inputs -- [model_file|csv_encode|predict_request]
+//! SECONDS [SEED]`.
+
+#[path = "../fuzz/targets.rs"]
+mod targets;
 
 use rand::{Rng, SeedableRng};
-use relume::data::{ReadOptions, Table};
-use relume::Model;
 use std::panic::{catch_unwind, AssertUnwindSafe};
 use std::time::{Duration, Instant};
 
-fn seed_model() -> Vec<u8> {
-    let mut csv = String::from("a,kind,y\n");
-    for i in 0..60 {
-        csv += &format!(
-            "{},{},{}\n",
-            i as f64 / 7.0,
-            ["p", "q", "r"][i % 3],
-            (i as f64).sin()
-        );
-    }
-    let table = Table::read(csv.as_bytes(), "seed", &ReadOptions::default()).expect("seed table");
-    let spec = relume::EncoderSpec {
-        target: "y".into(),
-        ..Default::default()
-    };
-    let recipe = relume::Recipe {
-        hidden: vec![4],
-        ..Default::default()
-    }
-    .with_config(relume::TrainConfig {
-        epochs: 2,
-        ..Default::default()
-    });
-    let (model, _) = Model::fit(&table, &spec, &recipe, Default::default()).expect("seed model");
-    model.to_json().into_bytes()
-}
+pub use targets::{run as parse, TARGETS};
 
-fn seed_csv() -> Vec<u8> {
-    b"x,y,kind,z\n1.5,2,a,3\n-0.25,1e-3,b,4\n7,,a,5\n\"q,uoted\",8,c,9\n".to_vec()
+/// The checked-in seed inputs of `target`.
+pub fn seeds(target: &str) -> Vec<Vec<u8>> {
+    let dir = format!("{}/fuzz/seeds/{target}", env!("CARGO_MANIFEST_DIR"));
+    let mut paths: Vec<_> = std::fs::read_dir(&dir)
+        .unwrap_or_else(|e| panic!("{dir}: {e}"))
+        .map(|entry| entry.expect("a readable folder").path())
+        .collect();
+    paths.sort();
+    paths
+        .iter()
+        .map(|p| std::fs::read(p).expect("a readable seed"))
+        .collect()
 }
 
 const NUMBERS: [&[u8]; 10] = [
@@ -109,19 +98,15 @@ fn mutate(seed: &[u8], rng: &mut impl Rng) -> Vec<u8> {
     v
 }
 
-/// Mutates the seed input of `target` ("model" or "csv") for `duration`; returns
-/// (executions, inputs accepted, crashes). Crashing inputs are written to tests/data/fuzz/.
+/// Mutates the seed inputs of `target` for `duration`; returns (executions, inputs accepted,
+/// crashes). Crashing inputs are written to tests/data/fuzz/.
 pub fn fuzz(target: &str, duration: Duration, seed: u64) -> (u64, u64, u64) {
-    let corpus = if target == "csv" {
-        seed_csv()
-    } else {
-        seed_model()
-    };
+    let corpus = seeds(target);
     let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
     let deadline = Instant::now() + duration;
     let (mut runs, mut accepted, mut crashes) = (0u64, 0u64, 0u64);
     while Instant::now() < deadline {
-        let input = mutate(&corpus, &mut rng);
+        let input = mutate(&corpus[rng.random_range(0..corpus.len())], &mut rng);
         runs += 1;
         match catch_unwind(AssertUnwindSafe(|| parse(target, &input))) {
             Ok(ok) => accepted += u64::from(ok),
@@ -138,19 +123,10 @@ pub fn fuzz(target: &str, duration: Duration, seed: u64) -> (u64, u64, u64) {
     (runs, accepted, crashes)
 }
 
-/// Feeds one input to the parser under test; true if it was accepted.
-pub fn parse(target: &str, input: &[u8]) -> bool {
-    if target == "csv" {
-        Table::read(input, "fuzz", &ReadOptions::default()).is_ok()
-    } else {
-        std::str::from_utf8(input).is_ok_and(|text| Model::from_json(text).is_ok())
-    }
-}
-
 #[allow(dead_code)]
 fn main() {
     let mut args = std::env::args().skip(1);
-    let target = args.next().unwrap_or_else(|| "model".into());
+    let target = args.next().unwrap_or_else(|| "model_file".into());
     let seconds: u64 = args.next().and_then(|s| s.parse().ok()).unwrap_or(10);
     let seed: u64 = args.next().and_then(|s| s.parse().ok()).unwrap_or(1);
     std::panic::set_hook(Box::new(|_| {}));

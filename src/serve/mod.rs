@@ -6,3 +6,4 @@ pub mod interval;
 pub mod metrics;
 pub mod model;
 pub mod predict;
+pub mod request;

@@ -1,0 +1,10 @@
+//! The `csv_encode` target: see fuzz/targets.rs.
+#![no_main]
+
+#[path = "../targets.rs"]
+#[allow(dead_code)]
+mod targets;
+
+libfuzzer_sys::fuzz_target!(|data: &[u8]| {
+    targets::csv_encode(data);
+});

@@ -1,0 +1,10 @@
+//! The `model_file` target: see fuzz/targets.rs.
+#![no_main]
+
+#[path = "../targets.rs"]
+#[allow(dead_code)]
+mod targets;
+
+libfuzzer_sys::fuzz_target!(|data: &[u8]| {
+    targets::model_file(data);
+});
