@@ -1,23 +1,34 @@
 //! Performance report: one line per case,
-//! `case=NAME step_us=MEDIAN floor_us=MEDIAN ratio=R allocs_per_step=N`,
+//! `case=NAME step_us=MEDIAN floor_us=MEDIAN ratio=R ratio_lo=L ratio_hi=H allocs_per_step=N`,
 //! where the floor is the time of the matrix products the step must do (same shapes, same
-//! GEMM library, same threads) or, for the activation case, a memcpy of the same buffer.
+//! product, same threads) or, for the activation case, a memcpy of the same buffer.
 //! Allocations are counted by a counting global allocator after warm-up.
+//!
+//! Step and floor are timed in interleaved rounds: each round times a batch of steps and a
+//! batch of floors back to back (the order alternating from round to round), so both see the
+//! same moment of a shared, noisy machine. `ratio` is the median over rounds of the paired
+//! ratio step/floor; `ratio_lo`–`ratio_hi` is a 95% percentile-bootstrap interval of that
+//! median (2000 resamples of the rounds, fixed seed). We chose the bootstrap of the median over
+//! a t interval on the log-ratios because the noise here comes in bursts (another process
+//! taking the core), which gives heavy tails that a mean and its t interval follow but a median
+//! does not. `step_us` and `floor_us` are the medians of the per-round times.
 //!
 //! The floor uses the crate's own product (`relume::kernels::matmul`); a `gemm=` line per
 //! training case times the same products through ndarray's `general_mat_mul` (the
-//! matrixmultiply crate), so a slow product cannot hide behind a good ratio. `wide_b1024_2t`
-//! runs on two threads (`relume::kernels::set_threads(2)`) and is also timed on one, for the
-//! speed-up line.
+//! matrixmultiply crate), in the same rounds, so a slow product cannot hide behind a good
+//! ratio. `wide_b1024_2t` runs on two threads (`relume::kernels::set_threads(2)`) and its
+//! rounds also time the one-thread step, for the `speedup` line (same median and interval).
+//! Each `activation=` line is timed in rounds paired with ReLU on the same 1024×1024 input.
 //!
-//! Run: `cargo run --release --example perf_report`. Times are medians over repeated batches
-//! of iterations measured in this run, so the ratios compare like with like on a noisy machine.
+//! Run: `cargo run --release --example perf_report [-- CASE... --simd avx2 --rounds N]`.
+//! `--simd avx2` (or `baseline`) caps the instruction set (`relume::kernels::set_simd_limit`);
+//! the header names the CPU, the instruction set in use and the load average at the start.
 
 use ndarray::linalg::general_mat_mul;
 use ndarray::{Array2, ArrayView2};
 use relume::data::{EncoderSpec, ReadOptions, Table};
 use relume::fit::monitor::MonitorConfig;
-use relume::kernels::{matmul, set_threads};
+use relume::kernels::{matmul, set_simd_limit, set_threads, simd_level, Simd};
 use relume::nn::layer::{Layer, Pass, Pointwise};
 use relume::serve::predict::Cell;
 use relume::{Activation, Adam, Loss, Model, NetworkPlan, Optimizer, Predictor, Recipe};
@@ -30,24 +41,79 @@ mod counting;
 #[global_allocator]
 static GLOBAL: counting::Counting = counting::Counting;
 
-/// Median microseconds per call of `f`, over `reps` batches of `iters` calls, after warm-up;
-/// and the allocations per call during the timed batches.
-fn measure(iters: usize, reps: usize, mut f: impl FnMut()) -> (f64, f64) {
-    for _ in 0..iters.max(3) {
-        f();
-    }
-    let before = counting::allocations();
-    let mut times = Vec::with_capacity(reps);
-    for _ in 0..reps {
-        let t = Instant::now();
-        for _ in 0..iters {
-            f();
+/// Per-round timings of a few jobs measured together.
+struct Rounds {
+    /// `times[j][r]`: microseconds per call of job j in round r.
+    times: Vec<Vec<f64>>,
+    /// Allocations per call of each job, over the timed rounds.
+    allocs: Vec<f64>,
+}
+
+/// Times every job in `rounds` rounds of `iters` calls each, after a warm-up of each job; the
+/// jobs run one after the other within a round, starting with a different job every round.
+fn interleaved(rounds: usize, iters: usize, jobs: &mut [&mut dyn FnMut()]) -> Rounds {
+    for job in jobs.iter_mut() {
+        for _ in 0..iters.max(3) {
+            job();
         }
-        times.push(t.elapsed().as_secs_f64() * 1e6 / iters as f64);
     }
-    let allocs = (counting::allocations() - before) as f64 / (iters * reps) as f64;
-    times.sort_by(f64::total_cmp);
-    (times[reps / 2], allocs)
+    let n = jobs.len();
+    let mut times = vec![Vec::with_capacity(rounds); n];
+    let mut allocs = vec![0usize; n];
+    for r in 0..rounds {
+        for o in 0..n {
+            let j = (r + o) % n;
+            let before = counting::allocations();
+            let t = Instant::now();
+            for _ in 0..iters {
+                jobs[j]();
+            }
+            let elapsed = t.elapsed().as_secs_f64() * 1e6 / iters as f64;
+            allocs[j] += counting::allocations() - before;
+            times[j].push(elapsed);
+        }
+    }
+    let calls = (rounds * iters) as f64;
+    Rounds {
+        times,
+        allocs: allocs.into_iter().map(|a| a as f64 / calls).collect(),
+    }
+}
+
+fn median(values: &[f64]) -> f64 {
+    let mut v = values.to_vec();
+    v.sort_by(f64::total_cmp);
+    let n = v.len();
+    if n % 2 == 1 {
+        v[n / 2]
+    } else {
+        0.5 * (v[n / 2 - 1] + v[n / 2])
+    }
+}
+
+/// Median of the paired ratios a[r]/b[r] and its 95% percentile-bootstrap interval
+/// (Efron & Tibshirani 1993, ch. 13), 2000 resamples drawn by a fixed-seed xorshift generator.
+fn paired_ratio(a: &[f64], b: &[f64]) -> (f64, f64, f64) {
+    let ratios: Vec<f64> = a.iter().zip(b).map(|(x, y)| x / y).collect();
+    let mut state = 0x9E37_79B9_7F4A_7C15_u64;
+    let mut next = move || {
+        state ^= state << 13;
+        state ^= state >> 7;
+        state ^= state << 17;
+        state
+    };
+    let n = ratios.len();
+    let mut sample = vec![0.0; n];
+    let mut medians: Vec<f64> = (0..2000)
+        .map(|_| {
+            for s in sample.iter_mut() {
+                *s = ratios[(next() % n as u64) as usize];
+            }
+            median(&sample)
+        })
+        .collect();
+    medians.sort_by(f64::total_cmp);
+    (median(&ratios), medians[49], medians[1949])
 }
 
 fn inputs(rows: usize, cols: usize) -> Array2<f32> {
@@ -56,15 +122,29 @@ fn inputs(rows: usize, cols: usize) -> Array2<f32> {
     })
 }
 
-fn line(case: &str, step: f64, floor: f64, allocs: f64) {
+/// Prints a `case=` line from the rounds of a step (job `step`) and its floor (job `floor`).
+fn line(case: &str, r: &Rounds, step: usize, floor: usize) {
+    let (ratio, lo, hi) = paired_ratio(&r.times[step], &r.times[floor]);
     println!(
-        "case={case} step_us={step:.2} floor_us={floor:.2} ratio={:.3} allocs_per_step={allocs:.0}",
-        step / floor
+        "case={case} step_us={:.2} floor_us={:.2} ratio={ratio:.3} ratio_lo={lo:.3} \
+         ratio_hi={hi:.3} allocs_per_step={:.0}",
+        median(&r.times[step]),
+        median(&r.times[floor]),
+        r.allocs[step]
     );
 }
 
-/// Time of the GEMMs one training step of a dense stack must do: per affine layer X·W, and in
-/// backward Xᵀ·G, plus G·Wᵀ for every layer but the first.
+/// Prints a `gemm` line: our product (job `ours`) against matrixmultiply (job `theirs`).
+fn gemm_line(case: &str, r: &Rounds, ours: usize, theirs: usize) {
+    let (ratio, lo, hi) = paired_ratio(&r.times[ours], &r.times[theirs]);
+    println!(
+        "gemm case={case} ours_us={:.2} matrixmultiply_us={:.2} ratio={ratio:.3} \
+         ratio_lo={lo:.3} ratio_hi={hi:.3}",
+        median(&r.times[ours]),
+        median(&r.times[theirs]),
+    );
+}
+
 /// One affine layer's operands: X, W, Y = X·W, dW, dX.
 type Operands = (
     Array2<f32>,
@@ -85,63 +165,141 @@ fn reference(a: ArrayView2<'_, f32>, b: ArrayView2<'_, f32>, c: &mut Array2<f32>
     general_mat_mul(1.0, &a, &b, 0.0, c);
 }
 
-fn gemm_floor(widths: &[usize], batch: usize, iters: usize, product: Product) -> f64 {
-    let layers: Vec<Operands> = widths
-        .windows(2)
-        .map(|w| {
-            (
-                inputs(batch, w[0]),          // X
-                inputs(w[0], w[1]),           // W
-                Array2::zeros((batch, w[1])), // Y
-                Array2::zeros((w[0], w[1])),  // dW
-                Array2::zeros((batch, w[0])), // dX
-            )
-        })
-        .collect();
-    let mut layers = layers;
-    let grads: Vec<Array2<f32>> = widths[1..].iter().map(|&w| inputs(batch, w)).collect();
-    let (t, _) = measure(iters, 15, || {
-        for (k, (x, w, y, dw, dx)) in layers.iter_mut().enumerate() {
+/// The matrix products one training step of a dense stack must do: per affine layer X·W, and
+/// in backward Xᵀ·G, plus G·Wᵀ for every layer but the first.
+struct GemmFloor {
+    layers: Vec<Operands>,
+    grads: Vec<Array2<f32>>,
+    product: Product,
+}
+
+impl GemmFloor {
+    fn new(widths: &[usize], batch: usize, product: Product) -> Self {
+        let layers = widths
+            .windows(2)
+            .map(|w| {
+                (
+                    inputs(batch, w[0]),          // X
+                    inputs(w[0], w[1]),           // W
+                    Array2::zeros((batch, w[1])), // Y
+                    Array2::zeros((w[0], w[1])),  // dW
+                    Array2::zeros((batch, w[0])), // dX
+                )
+            })
+            .collect();
+        let grads = widths[1..].iter().map(|&w| inputs(batch, w)).collect();
+        GemmFloor {
+            layers,
+            grads,
+            product,
+        }
+    }
+
+    fn run(&mut self) {
+        let product = self.product;
+        for (k, (x, w, y, dw, dx)) in self.layers.iter_mut().enumerate() {
             product(x.view(), w.view(), y);
-            product(x.t(), grads[k].view(), dw);
+            product(x.t(), self.grads[k].view(), dw);
             if k > 0 {
-                product(grads[k].view(), w.t(), dx);
+                product(self.grads[k].view(), w.t(), dx);
             }
         }
-        black_box(&layers);
-    });
-    t
+        black_box(&self.layers);
+    }
 }
 
-fn training_step(case: &str, widths: &[usize], batch: usize, iters: usize) -> f64 {
-    let mut net = NetworkPlan::new(widths[0], &widths[1..widths.len() - 1], Activation::Relu)
-        .build::<f32>(1)
-        .expect("valid plan");
-    let x = inputs(batch, widths[0]);
-    let y = inputs(batch, 1);
-    let mut grad = Array2::<f32>::zeros((batch, 1));
-    let mut adam = Adam::new(1e-3);
-    let (step, allocs) = measure(iters, 15, || {
-        net.clear_gradients();
-        let out = net.forward(x.view(), Pass::Train).expect("shapes");
-        Loss::Mse
-            .gradient_into(out, y.view(), grad.view_mut())
+/// One training step (forward, MSE gradient, backward, Adam) of a ReLU stack.
+struct Trainer {
+    net: relume::Network<f32>,
+    x: Array2<f32>,
+    y: Array2<f32>,
+    grad: Array2<f32>,
+    adam: Adam<f32>,
+}
+
+impl Trainer {
+    fn new(widths: &[usize], batch: usize) -> Self {
+        let net = NetworkPlan::new(widths[0], &widths[1..widths.len() - 1], Activation::Relu)
+            .build::<f32>(1)
+            .expect("valid plan");
+        Trainer {
+            net,
+            x: inputs(batch, widths[0]),
+            y: inputs(batch, 1),
+            grad: Array2::zeros((batch, 1)),
+            adam: Adam::new(1e-3),
+        }
+    }
+
+    fn step(&mut self) {
+        self.net.clear_gradients();
+        let out = self
+            .net
+            .forward(self.x.view(), Pass::Train)
             .expect("shapes");
-        net.backward_params(grad.view()).expect("shapes");
-        let (p, g) = net.params_and_grads();
-        adam.step(p, g);
-    });
-    let floor = gemm_floor(widths, batch, iters, ours);
-    line(case, step, floor, allocs);
-    let theirs = gemm_floor(widths, batch, iters, reference);
-    println!(
-        "gemm case={case} ours_us={floor:.2} matrixmultiply_us={theirs:.2} ratio={:.3}",
-        floor / theirs
-    );
-    step
+        Loss::Mse
+            .gradient_into(out, self.y.view(), self.grad.view_mut())
+            .expect("shapes");
+        self.net.backward_params(self.grad.view()).expect("shapes");
+        let (p, g) = self.net.params_and_grads();
+        self.adam.step(p, g);
+    }
 }
 
-fn row_predict() {
+/// A one-thread training case: step, our floor and the reference floor in the same rounds.
+fn training_case(case: &str, widths: &[usize], batch: usize, iters: usize, rounds: usize) {
+    let mut trainer = Trainer::new(widths, batch);
+    let mut floor = GemmFloor::new(widths, batch, ours);
+    let mut theirs = GemmFloor::new(widths, batch, reference);
+    let r = interleaved(
+        rounds,
+        iters,
+        &mut [&mut || trainer.step(), &mut || floor.run(), &mut || {
+            theirs.run()
+        }],
+    );
+    line(case, &r, 0, 1);
+    gemm_line(case, &r, 1, 2);
+}
+
+/// The wide step at batch 1024 on two threads and on one, all in the same rounds.
+fn two_thread_case(rounds: usize) {
+    let (widths, batch) = (&[256, 256, 256, 256, 1][..], 1024);
+    let mut two = Trainer::new(widths, batch);
+    let mut one = Trainer::new(widths, batch);
+    let mut floor_two = GemmFloor::new(widths, batch, ours);
+    let mut floor_one = GemmFloor::new(widths, batch, ours);
+    let mut theirs_two = GemmFloor::new(widths, batch, reference);
+    let mut theirs_one = GemmFloor::new(widths, batch, reference);
+    let on = |threads: usize, job: &mut dyn FnMut()| {
+        set_threads(threads);
+        job();
+        set_threads(1);
+    };
+    let r = interleaved(
+        rounds,
+        5,
+        &mut [
+            &mut || on(2, &mut || two.step()),
+            &mut || on(2, &mut || floor_two.run()),
+            &mut || one.step(),
+            &mut || floor_one.run(),
+            &mut || on(2, &mut || theirs_two.run()),
+            &mut || theirs_one.run(),
+        ],
+    );
+    line("wide_b1024_2t", &r, 0, 1);
+    gemm_line("wide_b1024_2t", &r, 1, 4);
+    line("wide_b1024_1t", &r, 2, 3);
+    gemm_line("wide_b1024_1t", &r, 3, 5);
+    let (speedup, lo, hi) = paired_ratio(&r.times[2], &r.times[0]);
+    println!(
+        "speedup case=wide_b1024 two_threads_over_one={speedup:.3} ratio_lo={lo:.3} \
+         ratio_hi={hi:.3}"
+    );
+}
+
+fn row_predict(rounds: usize) {
     let mut csv = String::from("a,b,c,d,e,f,g,h,i,j,y\n");
     for r in 0..300 {
         let v: Vec<f64> = (0..10)
@@ -168,85 +326,160 @@ fn row_predict() {
     let predictor = Predictor::new(&model);
     let mut scratch = predictor.scratch();
     let row: Vec<Cell> = (0..10).map(|j| Cell::Number(0.1 * j as f64)).collect();
-    let (step, allocs) = measure(20_000, 15, || {
-        black_box(
-            predictor
-                .predict_row(black_box(&row), &mut scratch)
-                .expect("row"),
-        );
-    });
     // Floor: the three row × matrix products through the crate's product.
     let shapes = [(10, 64), (64, 64), (64, 1)];
-    let mats: Vec<(Array2<f32>, Array2<f32>, Array2<f32>)> = shapes
+    let mut mats: Vec<(Array2<f32>, Array2<f32>, Array2<f32>)> = shapes
         .iter()
         .map(|&(i, o)| (inputs(1, i), inputs(i, o), Array2::zeros((1, o))))
         .collect();
-    let mut mats = mats;
-    let (floor, _) = measure(20_000, 15, || {
-        for (x, w, y) in mats.iter_mut() {
-            matmul(x.view(), w.view(), &mut y.view_mut(), false);
-        }
-        black_box(&mats);
-    });
-    line("row_predict", step, floor, allocs);
+    let r = interleaved(
+        rounds,
+        5_000,
+        &mut [
+            &mut || {
+                black_box(
+                    predictor
+                        .predict_row(black_box(&row), &mut scratch)
+                        .expect("row"),
+                );
+            },
+            &mut || {
+                for (x, w, y) in mats.iter_mut() {
+                    matmul(x.view(), w.view(), &mut y.view_mut(), false);
+                }
+                black_box(&mats);
+            },
+        ],
+    );
+    line("row_predict", &r, 0, 1);
 }
 
-fn activation_forward(act: Activation, x: ArrayView2<'_, f32>) -> (f64, f64) {
-    let mut layer = Pointwise::<f32>::new(x.ncols(), act).expect("layer");
-    measure(20, 15, || {
-        layer.forward(&[], x, Pass::Infer);
-        black_box(layer.output());
-    })
+/// The ReLU forward pass against a memcpy of the same buffer, then each smooth activation's
+/// forward pass against ReLU's, per element on 1024×1024 f32.
+fn activations(rounds: usize) {
+    let x = inputs(1024, 1024);
+    let mut relu = Pointwise::<f32>::new(1024, Activation::Relu).expect("layer");
+    let mut relu_fwd = || {
+        relu.forward(&[], x.view(), Pass::Infer);
+        black_box(relu.output());
+    };
+    let mut copy = Array2::<f32>::zeros((1024, 1024));
+    let r = interleaved(
+        rounds,
+        20,
+        &mut [&mut relu_fwd, &mut || {
+            copy.as_slice_mut()
+                .expect("contiguous")
+                .copy_from_slice(x.as_slice().expect("contiguous"));
+            black_box(&copy);
+        }],
+    );
+    line("relu_fwd", &r, 0, 1);
+    for act in [
+        Activation::Gelu,
+        Activation::ELU,
+        Activation::Selu,
+        Activation::SILU,
+        Activation::Tanh,
+        Activation::Sigmoid,
+        Activation::SOFTPLUS,
+    ] {
+        let mut layer = Pointwise::<f32>::new(1024, act).expect("layer");
+        let r = interleaved(
+            rounds,
+            20,
+            &mut [&mut relu_fwd, &mut || {
+                layer.forward(&[], x.view(), Pass::Infer);
+                black_box(layer.output());
+            }],
+        );
+        let (ratio, lo, hi) = paired_ratio(&r.times[1], &r.times[0]);
+        println!(
+            "activation={} fwd_us={:.1} relative_to_relu={ratio:.2} relative_lo={lo:.2} \
+             relative_hi={hi:.2}",
+            act.name(),
+            median(&r.times[1])
+        );
+    }
+}
+
+/// The CPU model from /proc/cpuinfo (Linux), or "unknown".
+fn cpu_model() -> String {
+    std::fs::read_to_string("/proc/cpuinfo")
+        .ok()
+        .and_then(|text| {
+            text.lines()
+                .find(|l| l.starts_with("model name"))
+                .and_then(|l| l.split(':').nth(1))
+                .map(|m| m.trim().to_string())
+        })
+        .unwrap_or_else(|| "unknown".into())
+}
+
+/// Whether the CPU has AVX-512F (whatever the cap).
+fn has_avx512() -> bool {
+    #[cfg(target_arch = "x86_64")]
+    {
+        std::is_x86_feature_detected!("avx512f")
+    }
+    #[cfg(not(target_arch = "x86_64"))]
+    {
+        false
+    }
 }
 
 fn main() {
+    // Arguments: case names to run (all when none), `--simd LEVEL`, `--rounds N`.
+    let mut only = Vec::new();
+    let mut rounds = 31;
+    let mut args = std::env::args().skip(1);
+    while let Some(arg) = args.next() {
+        match arg.as_str() {
+            "--simd" => match args.next().as_deref() {
+                Some("avx512") => set_simd_limit(Simd::Avx512),
+                Some("avx2") => set_simd_limit(Simd::Avx2),
+                Some("baseline") => set_simd_limit(Simd::Baseline),
+                other => panic!("--simd takes avx512, avx2 or baseline, not {other:?}"),
+            },
+            "--rounds" => {
+                rounds = args
+                    .next()
+                    .and_then(|n| n.parse().ok())
+                    .filter(|&n: &usize| n >= 5)
+                    .expect("--rounds takes a number ≥ 5")
+            }
+            _ => only.push(arg),
+        }
+    }
+    let load = std::fs::read_to_string("/proc/loadavg").unwrap_or_default();
     println!(
-        "# relume perf report ({} logical CPUs, kernels for {:?}; one thread except _2t)",
+        "# relume perf report: CPU {} ({} logical CPUs), instruction set in use {:?} \
+         (AVX-512F on this CPU: {}), {rounds} interleaved rounds, one thread except _2t, \
+         load average at start {}",
+        cpu_model(),
         std::thread::available_parallelism().map_or(1, |n| n.get()),
-        relume::kernels::simd_level()
+        simd_level(),
+        has_avx512(),
+        load.split_whitespace()
+            .take(3)
+            .collect::<Vec<_>>()
+            .join(" ")
     );
     set_threads(1);
-    // Optional arguments name the cases to run (all when none), e.g. for profiling one case.
-    let only: Vec<String> = std::env::args().skip(1).collect();
     let wanted = |case: &str| only.is_empty() || only.iter().any(|c| c == case);
     if wanted("tabular_b32") {
-        training_step("tabular_b32", &[10, 64, 64, 1], 32, 2000);
+        training_case("tabular_b32", &[10, 64, 64, 1], 32, 500, rounds);
     }
     if wanted("wide_b256") {
-        training_step("wide_b256", &[256, 256, 256, 256, 1], 256, 20);
+        training_case("wide_b256", &[256, 256, 256, 256, 1], 256, 5, rounds);
     }
     if wanted("wide_b1024_2t") {
-        set_threads(2);
-        let two = training_step("wide_b1024_2t", &[256, 256, 256, 256, 1], 1024, 5);
-        set_threads(1);
-        let one = training_step("wide_b1024_1t", &[256, 256, 256, 256, 1], 1024, 5);
-        println!(
-            "speedup case=wide_b1024 two_threads_over_one={:.3}",
-            one / two
-        );
+        two_thread_case(rounds);
     }
     if wanted("row_predict") {
-        row_predict();
+        row_predict(rounds);
     }
-    if !wanted("relu_fwd") {
-        return;
-    }
-    let x = inputs(1024, 1024);
-    let (relu, allocs) = activation_forward(Activation::Relu, x.view());
-    let mut copy = Array2::<f32>::zeros((1024, 1024));
-    let (floor, _) = measure(20, 15, || {
-        copy.as_slice_mut()
-            .expect("contiguous")
-            .copy_from_slice(x.as_slice().expect("contiguous"));
-        black_box(&copy);
-    });
-    line("relu_fwd", relu, floor, allocs);
-    for act in [Activation::Gelu, Activation::ELU, Activation::Selu] {
-        let (t, _) = activation_forward(act, x.view());
-        println!(
-            "activation={} fwd_us={t:.1} relative_to_relu={:.2}",
-            act.name(),
-            t / relu
-        );
+    if wanted("relu_fwd") {
+        activations(rounds);
     }
 }
