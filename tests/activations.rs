@@ -327,6 +327,16 @@ fn slice_kernels_give_the_same_bits_on_every_instruction_set() {
     for act in family() {
         set_simd_limit(Simd::Baseline);
         let reference = run(act);
+        // The slice kernels compute what `value` and `derivative` do for one element (the
+        // single-row predictor and the layers must agree).
+        for (i, (&v, &gv)) in x.iter().zip(&g).enumerate() {
+            assert_eq!(reference.0[i], act.value(v), "{act:?} value at {v}");
+            assert_eq!(
+                reference.1[i],
+                gv * act.derivative(v),
+                "{act:?} derivative at {v}"
+            );
+        }
         for limit in [Simd::Avx2, Simd::Avx512] {
             set_simd_limit(limit);
             if simd_level() != limit {

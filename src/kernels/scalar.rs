@@ -41,6 +41,10 @@ pub trait Scalar:
     /// eˣ for the activation kernels: exact (libm) in `f64`; in `f32` a branch-free
     /// approximation that vectorizes (relative error ≤ 2e-7).
     fn kernel_exp(self) -> Self;
+    /// eˣ for the activation kernels that need it to an error small against 1 + |result|
+    /// (sigmoid, softplus): exact (libm) in `f64`; in `f32` 2^(x·log₂e) with one rounding
+    /// more than [`Scalar::kernel_exp`], so a relative error ≤ 1.1e-7 + 9e-8·|x|, and cheaper.
+    fn kernel_exp_fast(self) -> Self;
     /// eˣ − 1 for the activation kernels, without cancellation near 0 (as [`Scalar::kernel_exp`]).
     fn kernel_exp_m1(self) -> Self;
     /// erfc(x) for the activation kernels: exact (libm) in `f64`; in `f32` Abramowitz & Stegun
@@ -73,6 +77,10 @@ impl Scalar for f32 {
     #[inline]
     fn kernel_exp(self) -> Self {
         exp_f32(self)
+    }
+    #[inline]
+    fn kernel_exp_fast(self) -> Self {
+        exp_fast_f32(self)
     }
     #[inline]
     fn kernel_exp_m1(self) -> Self {
@@ -169,6 +177,26 @@ fn exp_f32(x: f32) -> f32 {
     pow2_of_rounded(t) * exp_reduced(r)
 }
 
+/// 2ᶠ for |f| ≤ 1/2: 1 + f·Q(f), Q of degree 4 fitted as in [`exp_reduced`] (our fit:
+/// relative error 1.05e-7 with the coefficients rounded to f32).
+#[inline(always)]
+fn exp2_frac(f: f32) -> f32 {
+    1.0 + f
+        * (0.693_146_9
+            + f * (0.240_222_38 + f * (0.055_508_93 + f * (0.009_671_698 + f * 0.001_321_867_2))))
+}
+
+/// eˣ as 2ʷ, w = x·log₂e clamped to [−126, 127] and split into an integer and a fraction: the
+/// rounding of w adds a relative error of up to 9e-8·|x| (no Cody–Waite split), which the
+/// callers (sigmoid, softplus) multiply by a bounded factor.
+#[inline(always)]
+fn exp_fast_f32(x: f32) -> f32 {
+    let w = at_most(at_least(x * std::f32::consts::LOG2_E, -126.0), 127.0);
+    let rounded = w + ROUNDER;
+    let f = w - (rounded - ROUNDER);
+    pow2_of_rounded(rounded) * exp2_frac(f)
+}
+
 /// Branch-free eˣ − 1 in f32 without cancellation near 0: with x = k·ln 2 + r,
 /// eˣ − 1 = 2ᵏ(eʳ − 1) + (2ᵏ − 1), and eʳ − 1 = r + r²·P(r) (P of degree 4, fitted as in
 /// [`exp_reduced`]: relative error 2.5e-8 before rounding). For k = 0 this is the polynomial
@@ -196,34 +224,33 @@ fn normal_tail_f32(a: f32) -> (f32, f32) {
     let w = at_least(a * a * (-0.5 * std::f32::consts::LOG2_E), -126.0);
     let rounded = w + ROUNDER;
     let f = w - (rounded - ROUNDER);
-    let e = pow2_of_rounded(rounded) * exp_reduced(f * std::f32::consts::LN_2);
+    let e = pow2_of_rounded(rounded) * exp2_frac(f);
     (poly * e, 0.398_942_3 * e)
 }
 
-/// tanh(x) in f32: x·P(x²)/Q(x²) on [−9, 9] (beyond, tanh rounds to ±1 in f32), P of degree 6
-/// and Q of degree 3 in x², fitted by iteratively reweighted linear least squares at Chebyshev
-/// points (our fit: absolute error 6.4e-9 before rounding).
+/// tanh(x) in f32: x·P(x²)/Q(x²) on [−9, 9] (beyond, tanh rounds to ±1 in f32), P of degree 5
+/// and Q of degree 3 in x², fitted by iteratively reweighted linear least squares at 400
+/// Chebyshev points (our fit: absolute error 5.7e-8 before rounding).
 #[inline(always)]
 fn tanh_f32(x: f32) -> f32 {
     let x = at_most(at_least(x, -9.0), 9.0);
     let y = x * x;
-    let p = 0.999_999_98
-        + y * (0.130_820_47
-            + y * (0.003_101_813_9
-                + y * (1.113_319_3e-5
-                    + y * (-2.014_680_7e-8 + y * (5.243_835_2e-11 + y * -8.409_664_3e-14)))));
-    let q = 1.0 + y * (0.464_153_7 + y * (0.024_486_51 + y * 0.000_254_310_33));
+    let p = 0.999_999_82
+        + y * (0.129_136_95
+            + y * (0.002_915_051_5
+                + y * (9.219_683_3e-6 + y * (-1.265_330_2e-8 + y * 1.796_956_2e-11))));
+    let q = 1.0 + y * (0.462_469_5 + y * (0.023_739_163 + y * 0.000_227_340_85));
     x * p / q
 }
 
-/// ln(1 + t) in f32 for 0 ≤ t ≤ 1: 2s·R(s²) with s = t/(2 + t) ≤ 1/3, where R(w) = atanh(√w)/√w
+/// ln(1 + t) in f32 for 0 ≤ t ≤ 1: 2s·R(s²) (the 2 folded into the coefficients) with s = t/(2 + t) ≤ 1/3, where R(w) = atanh(√w)/√w
 /// is a degree-3 polynomial fitted as in [`exp_reduced`] (relative error 1.7e-7 before
 /// rounding); accurate relative to the result even for tiny t.
 #[inline(always)]
 fn ln_1p_unit_f32(t: f32) -> f32 {
     let s = t / (2.0 + t);
     let w = s * s;
-    (s + s) * (0.999_999_84 + w * (0.333_379_9 + w * (0.197_950_3 + w * 0.171_112_27)))
+    s * (1.999_999_6 + w * (0.666_759_8 + w * (0.395_900_6 + w * 0.342_224_54)))
 }
 
 impl Scalar for f64 {
@@ -241,6 +268,10 @@ impl Scalar for f64 {
     }
     #[inline]
     fn kernel_exp(self) -> Self {
+        self.exp()
+    }
+    #[inline]
+    fn kernel_exp_fast(self) -> Self {
         self.exp()
     }
     #[inline]

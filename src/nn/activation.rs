@@ -316,37 +316,39 @@ impl Activation {
         let zero = F::zero();
         match *self {
             Activation::Identity => out.copy_from_slice(x),
-            Activation::Relu => each(x, out, |v| if v > zero { v } else { zero }),
+            Activation::Relu => each(x, out, move |v| if v > zero { v } else { zero }),
             Activation::LeakyRelu { .. }
             | Activation::Prelu { .. }
             | Activation::RandomLeaky { .. } => {
                 let a = F::of(self.negative_slope());
-                each(x, out, |v| leaky(v, a))
+                each(x, out, move |v| leaky(v, a))
             }
             Activation::CappedRelu { cap } => {
                 let c = F::of(cap);
-                each(x, out, |v| v.max(zero).min(c))
+                each(x, out, move |v| v.max(zero).min(c))
             }
             Activation::Elu { alpha } => {
                 let a = F::of(alpha);
-                each(x, out, |v| elu(v, a))
+                each(x, out, move |v| elu(v, a))
             }
             Activation::Selu => {
                 let (l, a) = (F::of(SELU_LAMBDA), F::of(SELU_ALPHA));
-                each(x, out, |v| l * elu(v, a))
+                each(x, out, move |v| l * elu(v, a))
             }
             Activation::Gelu => each(x, out, gelu),
             Activation::Silu { beta } => {
                 let b = F::of(beta);
-                each(x, out, |v| v * sigmoid(b * v))
+                each(x, out, move |v| v * sigmoid(b * v))
             }
+            // β = 1 skips two multiplications by 1 (same bits as the general form).
+            Activation::Softplus { beta } if beta == 1.0 => each(x, out, softplus),
             Activation::Softplus { beta } => {
                 let (b, inv) = (F::of(beta), F::of(1.0 / beta));
-                each(x, out, |v| softplus_beta(v, b, inv))
+                each(x, out, move |v| softplus_beta(v, b, inv))
             }
             Activation::Tanh => each(x, out, F::kernel_tanh),
             Activation::Sigmoid => each(x, out, sigmoid),
-            _ => each(x, out, |v| self.value(v)),
+            _ => each(x, out, move |v| self.value(v)),
         }
     }
 
@@ -359,44 +361,49 @@ impl Activation {
             })
         }
         fn each<F: Scalar>(x: &[F], g: &[F], out: &mut [F], f: impl Fn(F) -> F + Sync + Copy) {
-            both(x, g, out, |v, gv| gv * f(v))
+            both(x, g, out, move |v, gv| gv * f(v))
         }
         let (zero, one) = (F::zero(), F::one());
         match *self {
             Activation::Identity => out.copy_from_slice(g),
             // The gradient itself where x > 0 (not g·1, which would turn an infinite g times a
             // zero slope into NaN).
-            Activation::Relu => both(x, g, out, |v, gv| if v > zero { gv } else { zero }),
+            Activation::Relu => both(x, g, out, move |v, gv| if v > zero { gv } else { zero }),
             Activation::LeakyRelu { .. }
             | Activation::Prelu { .. }
             | Activation::RandomLeaky { .. } => {
                 let a = F::of(self.negative_slope());
-                each(x, g, out, |v| leaky_derivative(v, a))
+                each(x, g, out, move |v| leaky_derivative(v, a))
             }
             Activation::CappedRelu { cap } => {
                 let c = F::of(cap);
-                each(x, g, out, |v| if v > zero && v < c { one } else { zero })
+                each(
+                    x,
+                    g,
+                    out,
+                    move |v| if v > zero && v < c { one } else { zero },
+                )
             }
             Activation::Elu { alpha } => {
                 let a = F::of(alpha);
-                each(x, g, out, |v| elu_derivative(v, a))
+                each(x, g, out, move |v| elu_derivative(v, a))
             }
             Activation::Selu => {
                 let (l, a) = (F::of(SELU_LAMBDA), F::of(SELU_ALPHA));
-                each(x, g, out, |v| l * elu_derivative(v, a))
+                each(x, g, out, move |v| l * elu_derivative(v, a))
             }
             Activation::Gelu => each(x, g, out, gelu_derivative),
             Activation::Silu { beta } => {
                 let b = F::of(beta);
-                each(x, g, out, |v| silu_derivative(v, b))
+                each(x, g, out, move |v| silu_derivative(v, b))
             }
             Activation::Softplus { beta } => {
                 let b = F::of(beta);
-                each(x, g, out, |v| sigmoid(b * v))
+                each(x, g, out, move |v| sigmoid(b * v))
             }
             Activation::Tanh => each(x, g, out, tanh_derivative),
             Activation::Sigmoid => each(x, g, out, sigmoid_derivative),
-            _ => each(x, g, out, |v| self.derivative(v)),
+            _ => each(x, g, out, move |v| self.derivative(v)),
         }
     }
 
@@ -672,15 +679,17 @@ fn elu_derivative<F: Scalar>(x: F, alpha: F) -> F {
 /// f64 an infinite e^(−x) gives 0), accurate relative to the result in the left tail.
 #[inline]
 pub fn sigmoid<F: Scalar>(x: F) -> F {
-    F::one() / (F::one() + (-x).kernel_exp())
+    F::one() / (F::one() + (-x).kernel_exp_fast())
 }
 
-/// σ(x) and 1 − σ(x) = e^(−x)·σ(x), the second accurate where σ(x) rounds to 1.
+/// σ(x) and 1 − σ(x): for x ≥ 0 as e^(−x)·σ(x), accurate where σ(x) rounds to 1 (and e^(−x)
+/// ≤ 1, so the product is never ∞·0).
 #[inline(always)]
 fn sigmoid_and_complement<F: Scalar>(x: F) -> (F, F) {
-    let e = (-x).kernel_exp();
+    let e = (-x).kernel_exp_fast();
     let s = F::one() / (F::one() + e);
-    (s, e * s)
+    let complement = if x < F::zero() { F::one() - s } else { e * s };
+    (s, complement)
 }
 
 #[inline]
@@ -700,7 +709,7 @@ fn silu_derivative<F: Scalar>(x: F, beta: F) -> F {
 /// would then be all rounding error).
 #[inline]
 fn tanh_derivative<F: Scalar>(x: F) -> F {
-    let u = (-(x.abs() + x.abs())).kernel_exp();
+    let u = (-(x.abs() + x.abs())).kernel_exp_fast();
     let v = F::one() + u;
     F::of(4.0) * u / (v * v)
 }
@@ -709,7 +718,7 @@ fn tanh_derivative<F: Scalar>(x: F) -> F {
 #[inline]
 pub fn softplus<F: Scalar>(x: F) -> F {
     let positive = if x > F::zero() { x } else { F::zero() };
-    positive + (-x.abs()).kernel_exp().kernel_ln_1p()
+    positive + (-x.abs()).kernel_exp_fast().kernel_ln_1p()
 }
 
 /// ln(1 + e^(βx))/β as max(x, 0) + ln(1 + e^(−β|x|))·(1/β): βx is never formed, so it
@@ -717,7 +726,7 @@ pub fn softplus<F: Scalar>(x: F) -> F {
 #[inline]
 fn softplus_beta<F: Scalar>(x: F, beta: F, inv_beta: F) -> F {
     let positive = if x > F::zero() { x } else { F::zero() };
-    positive + (-(beta * x.abs())).kernel_exp().kernel_ln_1p() * inv_beta
+    positive + (-(beta * x.abs())).kernel_exp_fast().kernel_ln_1p() * inv_beta
 }
 
 /// x·Φ(x) written as max(x, 0) − |x|·Φ(−|x|): one tail evaluation, no cancellation.
