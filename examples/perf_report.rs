@@ -454,6 +454,139 @@ fn activations(rounds: usize) {
     }
 }
 
+/// A synthetic regression table, `rows` × 20 inputs in [−1, 1), from a fixed formula (for
+/// timing only): y = Σⱼ sin(3·x_j)/(j + 1) + x₀·x₁.
+fn synthetic(rows: usize) -> (Array2<f32>, Array2<f32>) {
+    let x = Array2::from_shape_fn((rows, 20), |(i, j)| {
+        (((i.wrapping_mul(2_654_435_761) ^ (j * 40_503)) % 20_000) as f32 / 10_000.0) - 1.0
+    });
+    let y = Array2::from_shape_fn((rows, 1), |(i, _)| {
+        let row = x.row(i);
+        let waves: f32 = row
+            .iter()
+            .enumerate()
+            .map(|(j, &v)| (3.0 * v).sin() / (j + 1) as f32)
+            .sum();
+        waves + row[0] * row[1]
+    });
+    (x, y)
+}
+
+/// Peak resident memory of this process so far (Linux `VmHWM`), in MB.
+fn peak_rss_mb() -> f64 {
+    std::fs::read_to_string("/proc/self/status")
+        .ok()
+        .and_then(|text| {
+            text.lines()
+                .find(|l| l.starts_with("VmHWM:"))
+                .and_then(|l| l.split_whitespace().nth(1))
+                .and_then(|kb| kb.parse::<f64>().ok())
+        })
+        .map_or(f64::NAN, |kb| kb / 1024.0)
+}
+
+/// Child process of the `scaling` case: three epochs of the default large-table training
+/// (Adam, batch 32, 20 → 64 → 64 → 1 ReLU, 20% validation) on `rows` synthetic rows; prints
+/// the median epoch time and the peak resident memory before and after training.
+fn scaling_child(rows: usize) {
+    let (x, y) = synthetic(rows);
+    let data_mb = peak_rss_mb();
+    let mut net = NetworkPlan::new(20, &[64, 64], Activation::Relu)
+        .build::<f32>(1)
+        .expect("valid plan");
+    let config = relume::TrainConfig {
+        epochs: 3,
+        patience: None,
+        ..relume::TrainConfig::default()
+    };
+    let summary =
+        relume::train(&mut net, x.view(), y.view(), None, &config, &mut []).expect("training");
+    let seconds: Vec<f64> = summary.history.iter().map(|e| e.seconds).collect();
+    println!(
+        "scaling rows={rows} cols=20 epoch_s={:.3} train_rows={} peak_rss_after_data_mb={data_mb:.1} \
+         peak_rss_mb={:.1}",
+        median(&seconds),
+        summary.rows.0,
+        peak_rss_mb()
+    );
+}
+
+/// Training cost against table size: one child process per size, so each peak is its own.
+fn scaling() {
+    let exe = std::env::current_exe().expect("own path");
+    for rows in [10_000, 100_000, 1_000_000] {
+        let out = std::process::Command::new(&exe)
+            .args(["--scaling-child", &rows.to_string()])
+            .output()
+            .expect("child run");
+        print!("{}", String::from_utf8_lossy(&out.stdout));
+    }
+}
+
+/// A 5-member ensemble (no penalty grid) on 5000 synthetic rows, 20 epochs each, trained on a
+/// 2-thread rayon pool and on a 1-thread pool in alternating rounds (wall time): the ratio
+/// says whether members really run in parallel; the members must come out equal.
+fn ensemble(rounds: usize) {
+    use relume::fit::ensemble::fit_ensemble;
+    let (x, y) = synthetic(5000);
+    let recipe = Recipe {
+        members: 5,
+        choose_penalty: false,
+        ..Recipe::default()
+    }
+    .with_config(relume::TrainConfig {
+        epochs: 20,
+        patience: None,
+        ..relume::TrainConfig::default()
+    });
+    let train: Vec<usize> = (0..4000).collect();
+    let stop: Vec<usize> = (4000..5000).collect();
+    let fit = |threads: usize| {
+        let pool = rayon::ThreadPoolBuilder::new()
+            .num_threads(threads)
+            .build()
+            .expect("pool");
+        let t = Instant::now();
+        let e = pool
+            .install(|| {
+                fit_ensemble(
+                    &recipe,
+                    x.view(),
+                    y.view(),
+                    &train,
+                    &stop,
+                    MonitorConfig::default(),
+                    &|_, _| {},
+                )
+            })
+            .expect("ensemble");
+        let params: Vec<Vec<f32>> = e
+            .members
+            .iter()
+            .map(|m| m.network.params().to_vec())
+            .collect();
+        (t.elapsed().as_secs_f64(), params)
+    };
+    let (mut two, mut one) = (Vec::new(), Vec::new());
+    for r in 0..rounds {
+        let order = if r % 2 == 0 { [2, 1] } else { [1, 2] };
+        let mut got = Vec::new();
+        for threads in order {
+            let (t, params) = fit(threads);
+            if threads == 2 { two.push(t) } else { one.push(t) }
+            got.push(params);
+        }
+        assert!(got[0] == got[1], "members differ between 1 and 2 threads");
+    }
+    let (ratio, lo, hi) = paired_ratio(&two, &one);
+    println!(
+        "ensemble members=5 rows=4000 epochs=20 two_threads_s={:.2} one_thread_s={:.2} \
+         ratio={ratio:.3} ratio_lo={lo:.3} ratio_hi={hi:.3} same_members=true",
+        median(&two),
+        median(&one)
+    );
+}
+
 /// The CPU model from /proc/cpuinfo (Linux), or "unknown".
 fn cpu_model() -> String {
     std::fs::read_to_string("/proc/cpuinfo")
@@ -492,6 +625,11 @@ fn main() {
                 Some("baseline") => set_simd_limit(Simd::Baseline),
                 other => panic!("--simd takes avx512, avx2 or baseline, not {other:?}"),
             },
+            "--scaling-child" => {
+                let rows = args.next().and_then(|n| n.parse().ok()).expect("row count");
+                scaling_child(rows);
+                return;
+            }
             "--rounds" => {
                 rounds = args
                     .next()
@@ -532,5 +670,12 @@ fn main() {
     }
     if wanted("relu_fwd") {
         activations(rounds);
+    }
+    // Long cases, run only when named.
+    if only.iter().any(|c| c == "scaling") {
+        scaling();
+    }
+    if only.iter().any(|c| c == "ensemble") {
+        ensemble(rounds.min(5));
     }
 }
