@@ -373,11 +373,12 @@ fn row_predict(rounds: usize) {
     let predictor = Predictor::new(&model);
     let mut scratch = predictor.scratch();
     let row: Vec<Cell> = (0..10).map(|j| Cell::Number(0.1 * j as f64)).collect();
-    // Floor: the three row × matrix products through the crate's product.
+    // Floor: the three row × matrix products of every ensemble member through the crate's
+    // product (the predictor averages all members).
     let shapes = [(10, 64), (64, 64), (64, 1)];
-    let mut mats: Vec<(Array2<f32>, Array2<f32>, Array2<f32>)> = shapes
-        .iter()
-        .map(|&(i, o)| (inputs(1, i), inputs(i, o), Array2::zeros((1, o))))
+    let mut mats: Vec<(Array2<f32>, Array2<f32>, Array2<f32>)> = (0..predictor.member_count())
+        .flat_map(|_| shapes)
+        .map(|(i, o)| (inputs(1, i), inputs(i, o), Array2::zeros((1, o))))
         .collect();
     let r = interleaved(
         rounds,
