@@ -574,7 +574,11 @@ fn ensemble(rounds: usize) {
         let mut got = Vec::new();
         for threads in order {
             let (t, params) = fit(threads);
-            if threads == 2 { two.push(t) } else { one.push(t) }
+            if threads == 2 {
+                two.push(t)
+            } else {
+                one.push(t)
+            }
             got.push(params);
         }
         assert!(got[0] == got[1], "members differ between 1 and 2 threads");
