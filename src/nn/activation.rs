@@ -341,7 +341,7 @@ impl Activation {
                 each(x, out, move |v| v * sigmoid(b * v))
             }
             // β = 1 skips two multiplications by 1 (same bits as the general form).
-            Activation::Softplus { beta } if beta == 1.0 => each(x, out, softplus),
+            Activation::Softplus { beta: 1.0 } => each(x, out, softplus),
             Activation::Softplus { beta } => {
                 let (b, inv) = (F::of(beta), F::of(1.0 / beta));
                 each(x, out, move |v| softplus_beta(v, b, inv))
