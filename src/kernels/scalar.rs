@@ -30,6 +30,11 @@ pub trait Scalar:
     + DeserializeOwned
     + 'static
 {
+    /// True for `f64`: the activation functions then keep their textbook formulas on libm, the
+    /// reference the `f32` kernels are checked against (and what the certified fits were
+    /// measured with); false for `f32`, which uses the faster kernel forms. A constant, so the
+    /// choice costs nothing at run time.
+    const REFERENCE: bool;
     /// Converts an `f64` constant to this type (rounding to nearest for `f32`).
     fn of(value: f64) -> Self;
     /// Widens (or keeps) the value as an `f64`.
@@ -62,6 +67,7 @@ pub trait Scalar:
 }
 
 impl Scalar for f32 {
+    const REFERENCE: bool = false;
     fn of(value: f64) -> Self {
         value as f32
     }
@@ -254,6 +260,7 @@ fn ln_1p_unit_f32(t: f32) -> f32 {
 }
 
 impl Scalar for f64 {
+    const REFERENCE: bool = true;
     fn of(value: f64) -> Self {
         value
     }

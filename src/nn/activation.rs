@@ -340,11 +340,11 @@ impl Activation {
                 let b = F::of(beta);
                 each(x, out, move |v| v * sigmoid(b * v))
             }
-            // β = 1 skips two multiplications by 1 (same bits as the general form).
+            // β = 1 skips a multiplication and a division by 1 (same bits as the general form).
             Activation::Softplus { beta: 1.0 } => each(x, out, softplus),
             Activation::Softplus { beta } => {
-                let (b, inv) = (F::of(beta), F::of(1.0 / beta));
-                each(x, out, move |v| softplus_beta(v, b, inv))
+                let b = F::of(beta);
+                each(x, out, move |v| softplus_beta(v, b))
             }
             Activation::Tanh => each(x, out, F::kernel_tanh),
             Activation::Sigmoid => each(x, out, sigmoid),
@@ -445,7 +445,7 @@ impl Activation {
             }
             Activation::Silu { beta } => x * sigmoid(F::of(beta) * x),
             Activation::Mish => x * softplus(x).tanh(),
-            Activation::Softplus { beta } => softplus_beta(x, F::of(beta), F::of(1.0 / beta)),
+            Activation::Softplus { beta } => softplus_beta(x, F::of(beta)),
             Activation::CappedRelu { cap } => x.max(zero).min(F::of(cap)),
             Activation::Tanh => x.kernel_tanh(),
             Activation::Sigmoid => sigmoid(x),
@@ -679,6 +679,15 @@ fn elu_derivative<F: Scalar>(x: F, alpha: F) -> F {
 /// f64 an infinite e^(−x) gives 0), accurate relative to the result in the left tail.
 #[inline]
 pub fn sigmoid<F: Scalar>(x: F) -> F {
+    if F::REFERENCE {
+        // Neither branch overflows.
+        return if x >= F::zero() {
+            F::one() / (F::one() + (-x).exp())
+        } else {
+            let e = x.exp();
+            e / (F::one() + e)
+        };
+    }
     F::one() / (F::one() + (-x).kernel_exp_fast())
 }
 
@@ -686,6 +695,10 @@ pub fn sigmoid<F: Scalar>(x: F) -> F {
 /// ≤ 1, so the product is never ∞·0).
 #[inline(always)]
 fn sigmoid_and_complement<F: Scalar>(x: F) -> (F, F) {
+    if F::REFERENCE {
+        let s = sigmoid(x);
+        return (s, F::one() - s);
+    }
     let e = (-x).kernel_exp_fast();
     let s = F::one() / (F::one() + e);
     let complement = if x < F::zero() { F::one() - s } else { e * s };
@@ -709,6 +722,10 @@ fn silu_derivative<F: Scalar>(x: F, beta: F) -> F {
 /// would then be all rounding error).
 #[inline]
 fn tanh_derivative<F: Scalar>(x: F) -> F {
+    if F::REFERENCE {
+        let t = x.tanh();
+        return F::one() - t * t;
+    }
     let u = (-(x.abs() + x.abs())).kernel_exp_fast();
     let v = F::one() + u;
     F::of(4.0) * u / (v * v)
@@ -721,17 +738,20 @@ pub fn softplus<F: Scalar>(x: F) -> F {
     positive + (-x.abs()).kernel_exp_fast().kernel_ln_1p()
 }
 
-/// ln(1 + e^(βx))/β as max(x, 0) + ln(1 + e^(−β|x|))·(1/β): βx is never formed, so it
-/// cannot overflow.
+/// ln(1 + e^(βx))/β as max(x, 0) + ln(1 + e^(−β|x|))/β: βx is never formed, so it cannot
+/// overflow.
 #[inline]
-fn softplus_beta<F: Scalar>(x: F, beta: F, inv_beta: F) -> F {
+fn softplus_beta<F: Scalar>(x: F, beta: F) -> F {
     let positive = if x > F::zero() { x } else { F::zero() };
-    positive + (-(beta * x.abs())).kernel_exp_fast().kernel_ln_1p() * inv_beta
+    positive + (-(beta * x.abs())).kernel_exp_fast().kernel_ln_1p() / beta
 }
 
 /// x·Φ(x) written as max(x, 0) − |x|·Φ(−|x|): one tail evaluation, no cancellation.
 #[inline]
 fn gelu<F: Scalar>(x: F) -> F {
+    if F::REFERENCE {
+        return x * normal_cdf(x);
+    }
     let a = x.abs();
     let (tail, _) = a.kernel_normal_tail();
     let positive = if x > F::zero() { x } else { F::zero() };
@@ -741,6 +761,9 @@ fn gelu<F: Scalar>(x: F) -> F {
 /// Φ(x) + x·φ(x), the tail and the density sharing one exponential.
 #[inline]
 fn gelu_derivative<F: Scalar>(x: F) -> F {
+    if F::REFERENCE {
+        return normal_cdf(x) + x * normal_pdf(x);
+    }
     let (tail, density) = x.abs().kernel_normal_tail();
     let cdf = if x > F::zero() { F::one() - tail } else { tail };
     cdf + x * density
