@@ -1,7 +1,9 @@
 //! Forward and backward cost of each activation per element, on 1M f32 values, beside a plain
-//! copy of the same buffer as the floor.
+//! copy of the same buffer as the floor; then the slice kernels again with the instruction set
+//! capped at AVX2 (`set_simd_limit`), for CPUs without AVX-512.
 
 use criterion::{criterion_group, criterion_main, Criterion, Throughput};
+use relume::kernels::{set_simd_limit, simd_level, Simd};
 use relume::Activation;
 use std::hint::black_box;
 
@@ -50,5 +52,24 @@ fn bench_activations(c: &mut Criterion) {
     group.finish();
 }
 
-criterion_group!(benches, bench_activations);
+fn bench_activations_avx2(c: &mut Criterion) {
+    set_simd_limit(Simd::Avx2);
+    let x = inputs();
+    let g = vec![1.0_f32; N];
+    let (mut y, mut d) = (vec![0.0_f32; N], vec![0.0_f32; N]);
+    let mut group = c.benchmark_group(format!("activation_1m_f32_{:?}", simd_level()));
+    group.throughput(Throughput::Elements(N as u64));
+    for act in Activation::all() {
+        group.bench_function(format!("{}_forward_kernel", act.name()), |b| {
+            b.iter(|| act.apply(black_box(&x), &mut y))
+        });
+        group.bench_function(format!("{}_backward_kernel", act.name()), |b| {
+            b.iter(|| act.apply_derivative(black_box(&x), &g, &mut d))
+        });
+    }
+    group.finish();
+    set_simd_limit(Simd::Avx512);
+}
+
+criterion_group!(benches, bench_activations, bench_activations_avx2);
 criterion_main!(benches);

@@ -265,26 +265,45 @@ fn f32_kernels_stay_close_to_the_f64_reference() {
     }
     println!("f32 kernel exp: worst relative error {worst_exp:.2e}");
     assert!(worst_exp <= 3e-7);
+    // The f64 path of every smooth activation is libm's (exp, expm1, erfc, tanh, ln_1p), so it
+    // is the reference here. Error is measured as |f32 − f64| / (1 + |f64|): relative for large
+    // values, absolute near 0. The bound 5e-7 is about 4 units in the last place at 1.
     for act in [
         Activation::Gelu,
         Activation::ELU,
+        Activation::Elu { alpha: 0.5 },
         Activation::Selu,
         Activation::CELU,
         Activation::SILU,
+        Activation::Silu { beta: 1.7 },
+        Activation::Tanh,
+        Activation::Sigmoid,
+        Activation::SOFTPLUS,
+        Activation::Softplus { beta: 3.0 },
     ] {
-        let mut worst = 0.0_f64;
-        for i in 0..=4000 {
-            let x = -20.0 + i as f64 * 0.01;
+        let (mut worst, mut at) = (0.0_f64, (0.0, "value"));
+        for i in 0..=8000 {
+            let x = -20.0 + i as f64 * 0.005;
             let xf = x as f32;
-            for (ours, exact) in [
-                (act.value(xf) as f64, act.value(xf as f64)),
-                (act.derivative(xf) as f64, act.derivative(xf as f64)),
+            for (what, ours, exact) in [
+                ("value", act.value(xf) as f64, act.value(xf as f64)),
+                (
+                    "derivative",
+                    act.derivative(xf) as f64,
+                    act.derivative(xf as f64),
+                ),
             ] {
-                worst = worst.max((ours - exact).abs() / (1.0 + exact.abs()));
+                let error = (ours - exact).abs() / (1.0 + exact.abs());
+                if error > worst {
+                    (worst, at) = (error, (x, what));
+                }
             }
         }
-        println!("{act} in f32: worst error {worst:.2e}");
-        assert!(worst <= 1e-6, "{act}: {worst:e}");
+        println!(
+            "{act} in f32: worst error {worst:.2e} ({} at x = {})",
+            at.1, at.0
+        );
+        assert!(worst <= 5e-7, "{act}: {worst:e}");
     }
     assert!(f32::NAN.kernel_exp().is_nan());
     assert_eq!((-1e4_f32).kernel_exp_m1(), -1.0);
@@ -308,6 +327,16 @@ fn slice_kernels_give_the_same_bits_on_every_instruction_set() {
     for act in family() {
         set_simd_limit(Simd::Baseline);
         let reference = run(act);
+        // The slice kernels compute what `value` and `derivative` do for one element (the
+        // single-row predictor and the layers must agree).
+        for (i, (&v, &gv)) in x.iter().zip(&g).enumerate() {
+            assert_eq!(reference.0[i], act.value(v), "{act:?} value at {v}");
+            assert_eq!(
+                reference.1[i],
+                gv * act.derivative(v),
+                "{act:?} derivative at {v}"
+            );
+        }
         for limit in [Simd::Avx2, Simd::Avx512] {
             set_simd_limit(limit);
             if simd_level() != limit {

@@ -204,3 +204,30 @@ fn products_split_over_two_threads_match_one_thread() {
     let want = reference(a.view(), b.view());
     assert!((0..517).all(|i| (0..261).all(|j| (one[[i, j]] - want[(i, j)]).abs() < 1e-11)));
 }
+
+#[test]
+fn activation_kernels_split_over_two_threads_match_one_thread() {
+    let _settings = settings();
+    // Long enough for the element-wise loops to be split (at least twice 2¹⁵ elements), with a
+    // ragged end; every function of the family, forward and backward.
+    let n = 100_003;
+    let x: Vec<f32> = (0..n)
+        .map(|i| ((i * 7919) % 20_011) as f32 / 1000.0 - 10.0)
+        .collect();
+    let g: Vec<f32> = (0..n)
+        .map(|i| ((i * 31) % 101) as f32 / 50.0 - 1.0)
+        .collect();
+    for act in relume::Activation::all() {
+        let run = |threads: usize| {
+            set_threads(threads);
+            let (mut y, mut d) = (vec![0.0_f32; n], vec![0.0_f32; n]);
+            act.apply(&x, &mut y);
+            act.apply_derivative(&x, &g, &mut d);
+            (y, d)
+        };
+        let (one, two) = (run(1), run(2));
+        set_threads(1);
+        let same = |a: &[f32], b: &[f32]| a.iter().zip(b).all(|(u, v)| u.to_bits() == v.to_bits());
+        assert!(same(&one.0, &two.0) && same(&one.1, &two.1), "{act:?}");
+    }
+}

@@ -30,6 +30,11 @@ pub trait Scalar:
     + DeserializeOwned
     + 'static
 {
+    /// True for `f64`: the activation functions then keep their textbook formulas on libm, the
+    /// reference the `f32` kernels are checked against (and what the certified fits were
+    /// measured with); false for `f32`, which uses the faster kernel forms. A constant, so the
+    /// choice costs nothing at run time.
+    const REFERENCE: bool;
     /// Converts an `f64` constant to this type (rounding to nearest for `f32`).
     fn of(value: f64) -> Self;
     /// Widens (or keeps) the value as an `f64`.
@@ -41,14 +46,28 @@ pub trait Scalar:
     /// eˣ for the activation kernels: exact (libm) in `f64`; in `f32` a branch-free
     /// approximation that vectorizes (relative error ≤ 2e-7).
     fn kernel_exp(self) -> Self;
+    /// eˣ for the activation kernels that need it to an error small against 1 + |result|
+    /// (sigmoid, softplus): exact (libm) in `f64`; in `f32` 2^(x·log₂e) with one rounding
+    /// more than [`Scalar::kernel_exp`], so a relative error ≤ 1.1e-7 + 9e-8·|x|, and cheaper.
+    fn kernel_exp_fast(self) -> Self;
     /// eˣ − 1 for the activation kernels, without cancellation near 0 (as [`Scalar::kernel_exp`]).
     fn kernel_exp_m1(self) -> Self;
     /// erfc(x) for the activation kernels: exact (libm) in `f64`; in `f32` Abramowitz & Stegun
     /// 7.1.26 (absolute error ≤ 1.5e-7 on erf), branch-free.
     fn kernel_erfc(self) -> Self;
+    /// For a ≥ 0, the standard normal tail Φ(−a) and density φ(a), sharing one exponential:
+    /// exact (libm) in `f64`; in `f32` Abramowitz & Stegun 7.1.26 and a branch-free 2ˣ.
+    fn kernel_normal_tail(self) -> (Self, Self);
+    /// tanh(x) for the activation kernels: libm in `f64`; in `f32` an odd rational function
+    /// on [−9, 9] (absolute error ≤ 2e-7 in tests/activations.rs), saturating beyond.
+    fn kernel_tanh(self) -> Self;
+    /// ln(1 + t) for 0 ≤ t ≤ 1 (the range softplus needs): libm in `f64`; in `f32`
+    /// 2·atanh(t/(2 + t)) by a polynomial (relative error ≤ 2e-7), branch-free.
+    fn kernel_ln_1p(self) -> Self;
 }
 
 impl Scalar for f32 {
+    const REFERENCE: bool = false;
     fn of(value: f64) -> Self {
         value as f32
     }
@@ -66,69 +85,182 @@ impl Scalar for f32 {
         exp_f32(self)
     }
     #[inline]
+    fn kernel_exp_fast(self) -> Self {
+        exp_fast_f32(self)
+    }
+    #[inline]
     fn kernel_exp_m1(self) -> Self {
-        // Near 0, the series avoids the cancellation of e^x − 1; both branches are computed
-        // and one selected, so the loop stays branch-free.
-        let x = self;
-        let series = x
-            * (1.0
-                + x * (0.5
-                    + x * (1.0 / 6.0 + x * (1.0 / 24.0 + x * (1.0 / 120.0 + x * (1.0 / 720.0))))));
-        let direct = exp_f32(x) - 1.0;
-        if x.abs() < 0.25 {
-            series
-        } else {
-            direct
-        }
+        exp_m1_f32(self)
     }
     #[inline]
     fn kernel_erfc(self) -> Self {
-        // Abramowitz & Stegun 1964, formula 7.1.26, for |x|, mirrored for x < 0.
-        let z = self.abs();
-        let t = 1.0 / (1.0 + 0.327_591_1 * z);
-        let poly = t
-            * (0.254_829_6
-                + t * (-0.284_496_7 + t * (1.421_413_8 + t * (-1.453_152 + t * 1.061_405_4))));
-        let tail = poly * exp_f32(-z * z);
-        if self >= 0.0 {
-            tail
+        let (tail, _) = normal_tail_f32(self.abs() * std::f32::consts::SQRT_2);
+        let erfc = tail + tail;
+        if self < 0.0 {
+            2.0 - erfc
         } else {
-            2.0 - tail
+            erfc
         }
+    }
+    #[inline]
+    fn kernel_normal_tail(self) -> (Self, Self) {
+        normal_tail_f32(self)
+    }
+    #[inline]
+    fn kernel_tanh(self) -> Self {
+        tanh_f32(self)
+    }
+    #[inline]
+    fn kernel_ln_1p(self) -> Self {
+        ln_1p_unit_f32(self)
     }
 }
 
-/// Branch-free eˣ in f32: x = k·ln 2 + r with |r| ≤ ln 2 / 2, a degree-7 Taylor polynomial for
-/// eʳ, and 2ᵏ built from its bits. Inputs are clamped to [−87.3, 88.3], where 2ᵏ stays normal.
-#[inline]
-fn exp_f32(x: f32) -> f32 {
-    // max/min (not clamp) so that a NaN input becomes a number here; it is put back at the end.
-    #[allow(clippy::manual_clamp)]
-    let c = x.max(-87.3).min(88.3);
-    // Round to nearest by adding and subtracting 1.5·2²³: plain SSE2, so the loop vectorizes
-    // on any x86-64 (a `round` call would not).
-    const SHIFT: f32 = 12_582_912.0;
-    let k = (c * std::f32::consts::LOG2_E + SHIFT) - SHIFT;
-    let r = c - k * 0.693_145_75 - k * 1.428_606_8e-6;
-    let p = 1.0
-        + r * (1.0
-            + r * (0.5
-                + r * (1.0 / 6.0
-                    + r * (1.0 / 24.0
-                        + r * (1.0 / 120.0 + r * (1.0 / 720.0 + r * (1.0 / 5040.0)))))));
-    // SAFETY: c is within [−87.3, 88.3], so k is an integer in [−126, 127], which an i32 holds
-    // exactly; the unchecked conversion only skips the saturation checks that block
-    // vectorization.
-    let k = unsafe { k.to_int_unchecked::<i32>() };
-    let e = f32::from_bits(((k + 127) as u32) << 23) * p;
-    if x.is_nan() {
-        x
+// The f32 kernels below use only IEEE additions, multiplications, divisions, comparisons and
+// bit operations (no fused multiply-add), so a vector lane computes exactly what the scalar
+// code does: results do not depend on the instruction set. Clamps are written as comparisons
+// that keep a NaN (the compiler emits one max/min instruction for each).
+
+/// 1.5·2²³: adding and subtracting it rounds an f32 of magnitude below 2²² to the nearest
+/// integer with plain SSE2 arithmetic, so the loops vectorize on any x86-64 (a `round` call
+/// would not).
+const ROUNDER: f32 = 12_582_912.0;
+/// ln 2 split in two (Cody & Waite 1980): the high part has 15 significant bits, so k·LN2_HI is
+/// exact for the |k| ≤ 127 used here.
+const LN2_HI: f32 = 0.693_145_75;
+const LN2_LO: f32 = 1.428_606_8e-6;
+
+/// max(x, lo), NaN kept.
+#[inline(always)]
+fn at_least(x: f32, lo: f32) -> f32 {
+    if x < lo {
+        lo
     } else {
-        e
+        x
     }
+}
+
+/// min(x, hi), NaN kept.
+#[inline(always)]
+fn at_most(x: f32, hi: f32) -> f32 {
+    if x > hi {
+        hi
+    } else {
+        x
+    }
+}
+
+/// 2ᵏ from t = k + ROUNDER, k an integer in [−126, 127]: the low mantissa bits of t hold k.
+#[inline(always)]
+fn pow2_of_rounded(t: f32) -> f32 {
+    f32::from_bits(t.to_bits().wrapping_sub(0x4B40_0000 - 127) << 23)
+}
+
+/// x = k·ln 2 + r with |r| ≤ ln 2 / 2 (up to rounding of the split), for x in [−87.3, 88.3];
+/// returns (k + ROUNDER, r).
+#[inline(always)]
+fn reduce(x: f32) -> (f32, f32) {
+    let t = x * std::f32::consts::LOG2_E + ROUNDER;
+    let k = t - ROUNDER;
+    (t, x - k * LN2_HI - k * LN2_LO)
+}
+
+/// eʳ for |r| ≤ ln 2 / 2: 1 + r·Q(r), Q of degree 4 fitted by weighted least squares at 200
+/// Chebyshev points for relative error (our fit: 1.05e-7 with the coefficients rounded to f32;
+/// checked against libm in tests/activations.rs).
+#[inline(always)]
+fn exp_reduced(r: f32) -> f32 {
+    1.0 + r
+        * (0.999_999_5
+            + r * (0.499_991_42 + r * (0.166_681_14 + r * (0.041_898_73 + r * 0.008_261_531))))
+}
+
+/// Branch-free eˣ in f32: x = k·ln 2 + r, eʳ by [`exp_reduced`], 2ᵏ built from its bits.
+/// Inputs are clamped to [−87.3, 88.3], where 2ᵏ stays normal; a NaN stays NaN.
+#[inline(always)]
+fn exp_f32(x: f32) -> f32 {
+    let (t, r) = reduce(at_most(at_least(x, -87.3), 88.3));
+    pow2_of_rounded(t) * exp_reduced(r)
+}
+
+/// 2ᶠ for |f| ≤ 1/2: 1 + f·Q(f), Q of degree 4 fitted as in [`exp_reduced`] (our fit:
+/// relative error 1.05e-7 with the coefficients rounded to f32).
+#[inline(always)]
+fn exp2_frac(f: f32) -> f32 {
+    1.0 + f
+        * (0.693_146_9
+            + f * (0.240_222_38 + f * (0.055_508_93 + f * (0.009_671_698 + f * 0.001_321_867_2))))
+}
+
+/// eˣ as 2ʷ, w = x·log₂e clamped to [−126, 127] and split into an integer and a fraction: the
+/// rounding of w adds a relative error of up to 9e-8·|x| (no Cody–Waite split), which the
+/// callers (sigmoid, softplus) multiply by a bounded factor.
+#[inline(always)]
+fn exp_fast_f32(x: f32) -> f32 {
+    let w = at_most(at_least(x * std::f32::consts::LOG2_E, -126.0), 127.0);
+    let rounded = w + ROUNDER;
+    let f = w - (rounded - ROUNDER);
+    pow2_of_rounded(rounded) * exp2_frac(f)
+}
+
+/// Branch-free eˣ − 1 in f32 without cancellation near 0: with x = k·ln 2 + r,
+/// eˣ − 1 = 2ᵏ(eʳ − 1) + (2ᵏ − 1), and eʳ − 1 = r + r²·P(r) (P of degree 4, fitted as in
+/// [`exp_reduced`]: relative error 2.5e-8 before rounding). For k = 0 this is the polynomial
+/// alone, accurate relative to the result.
+#[inline(always)]
+fn exp_m1_f32(x: f32) -> f32 {
+    let (t, r) = reduce(at_most(at_least(x, -87.3), 88.3));
+    let q = r + r
+        * r
+        * (0.5
+            + r * (0.166_665_77 + r * (0.041_666_465 + r * (0.008_363_176 + r * 0.001_393_364_4))));
+    let s = pow2_of_rounded(t);
+    s * q + (s - 1.0)
+}
+
+/// For a ≥ 0: Φ(−a) = erfc(a/√2)/2 by Abramowitz & Stegun 1964, formula 7.1.26 (absolute
+/// error ≤ 1.5e-7 on erf; coefficients halved here), and φ(a) = e^(−a²/2)/√(2π); the
+/// exponential, shared, is 2ʷ with w = −a²·log₂(e)/2 split into an integer and a fraction.
+#[inline(always)]
+fn normal_tail_f32(a: f32) -> (f32, f32) {
+    let t = 1.0 / (1.0 + 0.231_641_89 * a);
+    let poly = t
+        * (0.127_414_8
+            + t * (-0.142_248_37 + t * (0.710_706_9 + t * (-0.726_576 + t * 0.530_702_7))));
+    let w = at_least(a * a * (-0.5 * std::f32::consts::LOG2_E), -126.0);
+    let rounded = w + ROUNDER;
+    let f = w - (rounded - ROUNDER);
+    let e = pow2_of_rounded(rounded) * exp2_frac(f);
+    (poly * e, 0.398_942_3 * e)
+}
+
+/// tanh(x) in f32: x·P(x²)/Q(x²) on [−9, 9] (beyond, tanh rounds to ±1 in f32), P of degree 5
+/// and Q of degree 3 in x², fitted by iteratively reweighted linear least squares at 400
+/// Chebyshev points (our fit: absolute error 5.7e-8 before rounding).
+#[inline(always)]
+fn tanh_f32(x: f32) -> f32 {
+    let x = at_most(at_least(x, -9.0), 9.0);
+    let y = x * x;
+    let p = 0.999_999_8
+        + y * (0.129_136_95
+            + y * (0.002_915_051_5
+                + y * (9.219_683e-6 + y * (-1.265_330_2e-8 + y * 1.796_956_2e-11))));
+    let q = 1.0 + y * (0.462_469_5 + y * (0.023_739_163 + y * 0.000_227_340_85));
+    x * p / q
+}
+
+/// ln(1 + t) in f32 for 0 ≤ t ≤ 1: 2s·R(s²) (the 2 folded into the coefficients) with s = t/(2 + t) ≤ 1/3, where R(w) = atanh(√w)/√w
+/// is a degree-3 polynomial fitted as in [`exp_reduced`] (relative error 1.7e-7 before
+/// rounding); accurate relative to the result even for tiny t.
+#[inline(always)]
+fn ln_1p_unit_f32(t: f32) -> f32 {
+    let s = t / (2.0 + t);
+    let w = s * s;
+    s * (1.999_999_6 + w * (0.666_759_8 + w * (0.395_900_6 + w * 0.342_224_54)))
 }
 
 impl Scalar for f64 {
+    const REFERENCE: bool = true;
     fn of(value: f64) -> Self {
         value
     }
@@ -146,11 +278,31 @@ impl Scalar for f64 {
         self.exp()
     }
     #[inline]
+    fn kernel_exp_fast(self) -> Self {
+        self.exp()
+    }
+    #[inline]
     fn kernel_exp_m1(self) -> Self {
         self.exp_m1()
     }
     #[inline]
     fn kernel_erfc(self) -> Self {
         libm::erfc(self)
+    }
+    #[inline]
+    fn kernel_normal_tail(self) -> (Self, Self) {
+        let inv_sqrt_2pi = 0.5 * std::f64::consts::FRAC_2_SQRT_PI * std::f64::consts::FRAC_1_SQRT_2;
+        (
+            0.5 * libm::erfc(self * std::f64::consts::FRAC_1_SQRT_2),
+            inv_sqrt_2pi * (-0.5 * self * self).exp(),
+        )
+    }
+    #[inline]
+    fn kernel_tanh(self) -> Self {
+        self.tanh()
+    }
+    #[inline]
+    fn kernel_ln_1p(self) -> Self {
+        self.ln_1p()
     }
 }

@@ -316,32 +316,39 @@ impl Activation {
         let zero = F::zero();
         match *self {
             Activation::Identity => out.copy_from_slice(x),
-            Activation::Relu => each(x, out, |v| if v > zero { v } else { zero }),
+            Activation::Relu => each(x, out, move |v| if v > zero { v } else { zero }),
             Activation::LeakyRelu { .. }
             | Activation::Prelu { .. }
             | Activation::RandomLeaky { .. } => {
                 let a = F::of(self.negative_slope());
-                each(x, out, |v| leaky(v, a))
+                each(x, out, move |v| leaky(v, a))
             }
             Activation::CappedRelu { cap } => {
                 let c = F::of(cap);
-                each(x, out, |v| v.max(zero).min(c))
+                each(x, out, move |v| v.max(zero).min(c))
             }
             Activation::Elu { alpha } => {
                 let a = F::of(alpha);
-                each(x, out, |v| elu(v, a))
+                each(x, out, move |v| elu(v, a))
             }
             Activation::Selu => {
                 let (l, a) = (F::of(SELU_LAMBDA), F::of(SELU_ALPHA));
-                each(x, out, |v| l * elu(v, a))
+                each(x, out, move |v| l * elu(v, a))
             }
-            Activation::Gelu => each(x, out, |v| v * normal_cdf(v)),
+            Activation::Gelu => each(x, out, gelu),
             Activation::Silu { beta } => {
                 let b = F::of(beta);
-                each(x, out, |v| v * sigmoid(b * v))
+                each(x, out, move |v| v * sigmoid(b * v))
             }
+            // β = 1 skips a multiplication and a division by 1 (same bits as the general form).
+            Activation::Softplus { beta: 1.0 } => each(x, out, softplus),
+            Activation::Softplus { beta } => {
+                let b = F::of(beta);
+                each(x, out, move |v| softplus_beta(v, b))
+            }
+            Activation::Tanh => each(x, out, F::kernel_tanh),
             Activation::Sigmoid => each(x, out, sigmoid),
-            _ => each(x, out, |v| self.value(v)),
+            _ => each(x, out, move |v| self.value(v)),
         }
     }
 
@@ -354,34 +361,49 @@ impl Activation {
             })
         }
         fn each<F: Scalar>(x: &[F], g: &[F], out: &mut [F], f: impl Fn(F) -> F + Sync + Copy) {
-            both(x, g, out, |v, gv| gv * f(v))
+            both(x, g, out, move |v, gv| gv * f(v))
         }
         let (zero, one) = (F::zero(), F::one());
         match *self {
             Activation::Identity => out.copy_from_slice(g),
             // The gradient itself where x > 0 (not g·1, which would turn an infinite g times a
             // zero slope into NaN).
-            Activation::Relu => both(x, g, out, |v, gv| if v > zero { gv } else { zero }),
+            Activation::Relu => both(x, g, out, move |v, gv| if v > zero { gv } else { zero }),
             Activation::LeakyRelu { .. }
             | Activation::Prelu { .. }
             | Activation::RandomLeaky { .. } => {
                 let a = F::of(self.negative_slope());
-                each(x, g, out, |v| leaky_derivative(v, a))
+                each(x, g, out, move |v| leaky_derivative(v, a))
             }
             Activation::CappedRelu { cap } => {
                 let c = F::of(cap);
-                each(x, g, out, |v| if v > zero && v < c { one } else { zero })
+                each(
+                    x,
+                    g,
+                    out,
+                    move |v| if v > zero && v < c { one } else { zero },
+                )
             }
             Activation::Elu { alpha } => {
                 let a = F::of(alpha);
-                each(x, g, out, |v| elu_derivative(v, a))
+                each(x, g, out, move |v| elu_derivative(v, a))
             }
             Activation::Selu => {
                 let (l, a) = (F::of(SELU_LAMBDA), F::of(SELU_ALPHA));
-                each(x, g, out, |v| l * elu_derivative(v, a))
+                each(x, g, out, move |v| l * elu_derivative(v, a))
             }
-            Activation::Gelu => each(x, g, out, |v| normal_cdf(v) + v * normal_pdf(v)),
-            _ => each(x, g, out, |v| self.derivative(v)),
+            Activation::Gelu => each(x, g, out, gelu_derivative),
+            Activation::Silu { beta } => {
+                let b = F::of(beta);
+                each(x, g, out, move |v| silu_derivative(v, b))
+            }
+            Activation::Softplus { beta } => {
+                let b = F::of(beta);
+                each(x, g, out, move |v| sigmoid(b * v))
+            }
+            Activation::Tanh => each(x, g, out, tanh_derivative),
+            Activation::Sigmoid => each(x, g, out, sigmoid_derivative),
+            _ => each(x, g, out, move |v| self.derivative(v)),
         }
     }
 
@@ -412,7 +434,7 @@ impl Activation {
                     a * (x / a).kernel_exp_m1()
                 }
             }
-            Activation::Gelu => x * normal_cdf(x),
+            Activation::Gelu => gelu(x),
             Activation::GeluTanh => {
                 if x.abs() > F::of(1e6) {
                     // tanh saturates: the formula's limit, exact in floating point.
@@ -423,14 +445,9 @@ impl Activation {
             }
             Activation::Silu { beta } => x * sigmoid(F::of(beta) * x),
             Activation::Mish => x * softplus(x).tanh(),
-            Activation::Softplus { beta } => {
-                // max(x, 0) + ln(1 + e^(−β|x|))/β: equal to ln(1 + e^(βx))/β, but βx never
-                // overflows.
-                let b = F::of(beta);
-                x.max(F::zero()) + (-(b * x.abs())).exp().ln_1p() / b
-            }
+            Activation::Softplus { beta } => softplus_beta(x, F::of(beta)),
             Activation::CappedRelu { cap } => x.max(zero).min(F::of(cap)),
-            Activation::Tanh => x.tanh(),
+            Activation::Tanh => x.kernel_tanh(),
             Activation::Sigmoid => sigmoid(x),
         }
     }
@@ -461,7 +478,7 @@ impl Activation {
                     (x / F::of(alpha)).kernel_exp()
                 }
             }
-            Activation::Gelu => normal_cdf(x) + x * normal_pdf(x),
+            Activation::Gelu => gelu_derivative(x),
             Activation::GeluTanh => {
                 if x.abs() > F::of(1e6) {
                     return if x > zero { one } else { zero };
@@ -471,12 +488,7 @@ impl Activation {
                 let inner_slope = c * (one + F::of(3.0 * GELU_TANH_CUBIC) * x * x);
                 F::of(0.5) * (one + t) + F::of(0.5) * x * (one - t * t) * inner_slope
             }
-            Activation::Silu { beta } => {
-                let b = F::of(beta);
-                let s = sigmoid(b * x);
-                // s + βx·s(1 − s), grouped so that no partial product overflows.
-                s + b * ((x * s) * (one - s))
-            }
+            Activation::Silu { beta } => silu_derivative(x, F::of(beta)),
             Activation::Mish => {
                 let t = softplus(x).tanh();
                 t + (x * sigmoid(x)) * (one - t * t)
@@ -489,14 +501,8 @@ impl Activation {
                     zero
                 }
             }
-            Activation::Tanh => {
-                let t = x.tanh();
-                one - t * t
-            }
-            Activation::Sigmoid => {
-                let s = sigmoid(x);
-                s * (one - s)
-            }
+            Activation::Tanh => tanh_derivative(x),
+            Activation::Sigmoid => sigmoid_derivative(x),
         }
     }
 }
@@ -634,10 +640,24 @@ pub fn leaky_derivative<F: Scalar>(x: F, a: F) -> F {
     }
 }
 
+// The element functions below are shared by `value`/`derivative` and the slice kernels, so a
+// single element and a whole layer give the same bits. Both sides of a kink are computed and
+// one selected, which keeps the kernel loops branch-free; comparisons are written so that a
+// NaN input gives a NaN.
+
+/// The non-positive part of x (NaN kept).
+#[inline(always)]
+fn negative_part<F: Scalar>(x: F) -> F {
+    if x > F::zero() {
+        F::zero()
+    } else {
+        x
+    }
+}
+
 #[inline]
 fn elu<F: Scalar>(x: F, alpha: F) -> F {
-    // Both sides computed and one selected: keeps the kernel loops branch-free.
-    let negative = alpha * x.min(F::zero()).kernel_exp_m1();
+    let negative = alpha * negative_part(x).kernel_exp_m1();
     if x > F::zero() {
         x
     } else {
@@ -647,7 +667,7 @@ fn elu<F: Scalar>(x: F, alpha: F) -> F {
 
 #[inline]
 fn elu_derivative<F: Scalar>(x: F, alpha: F) -> F {
-    let negative = alpha * x.min(F::zero()).kernel_exp();
+    let negative = alpha * negative_part(x).kernel_exp();
     if x > F::zero() {
         F::one()
     } else {
@@ -655,21 +675,98 @@ fn elu_derivative<F: Scalar>(x: F, alpha: F) -> F {
     }
 }
 
-/// Logistic sigmoid, evaluated so that neither branch overflows.
+/// Logistic sigmoid 1/(1 + e^(−x)): no overflow (the kernel exponential saturates in f32; in
+/// f64 an infinite e^(−x) gives 0), accurate relative to the result in the left tail.
 #[inline]
 pub fn sigmoid<F: Scalar>(x: F) -> F {
-    if x >= F::zero() {
-        F::one() / (F::one() + (-x).exp())
-    } else {
-        let e = x.exp();
-        e / (F::one() + e)
+    if F::REFERENCE {
+        // Neither branch overflows.
+        return if x >= F::zero() {
+            F::one() / (F::one() + (-x).exp())
+        } else {
+            let e = x.exp();
+            e / (F::one() + e)
+        };
     }
+    F::one() / (F::one() + (-x).kernel_exp_fast())
+}
+
+/// σ(x) and 1 − σ(x): for x ≥ 0 as e^(−x)·σ(x), accurate where σ(x) rounds to 1 (and e^(−x)
+/// ≤ 1, so the product is never ∞·0).
+#[inline(always)]
+fn sigmoid_and_complement<F: Scalar>(x: F) -> (F, F) {
+    if F::REFERENCE {
+        let s = sigmoid(x);
+        return (s, F::one() - s);
+    }
+    let e = (-x).kernel_exp_fast();
+    let s = F::one() / (F::one() + e);
+    let complement = if x < F::zero() { F::one() - s } else { e * s };
+    (s, complement)
+}
+
+#[inline]
+fn sigmoid_derivative<F: Scalar>(x: F) -> F {
+    let (s, c) = sigmoid_and_complement(x);
+    s * c
+}
+
+/// d/dx x·σ(βx) = s + βx·s(1 − s), grouped so that no partial product overflows.
+#[inline]
+fn silu_derivative<F: Scalar>(x: F, beta: F) -> F {
+    let (s, c) = sigmoid_and_complement(beta * x);
+    s + beta * ((x * s) * c)
+}
+
+/// 1 − tanh²(x) = 4u/(1 + u)² with u = e^(−2|x|): accurate where tanh rounds to ±1 (1 − t²
+/// would then be all rounding error).
+#[inline]
+fn tanh_derivative<F: Scalar>(x: F) -> F {
+    if F::REFERENCE {
+        let t = x.tanh();
+        return F::one() - t * t;
+    }
+    let u = (-(x.abs() + x.abs())).kernel_exp_fast();
+    let v = F::one() + u;
+    F::of(4.0) * u / (v * v)
 }
 
 /// ln(1 + eˣ) without overflow: max(x, 0) + ln(1 + e^(−|x|)).
 #[inline]
 pub fn softplus<F: Scalar>(x: F) -> F {
-    x.max(F::zero()) + (-x.abs()).exp().ln_1p()
+    let positive = if x > F::zero() { x } else { F::zero() };
+    positive + (-x.abs()).kernel_exp_fast().kernel_ln_1p()
+}
+
+/// ln(1 + e^(βx))/β as max(x, 0) + ln(1 + e^(−β|x|))/β: βx is never formed, so it cannot
+/// overflow.
+#[inline]
+fn softplus_beta<F: Scalar>(x: F, beta: F) -> F {
+    let positive = if x > F::zero() { x } else { F::zero() };
+    positive + (-(beta * x.abs())).kernel_exp_fast().kernel_ln_1p() / beta
+}
+
+/// x·Φ(x) written as max(x, 0) − |x|·Φ(−|x|): one tail evaluation, no cancellation.
+#[inline]
+fn gelu<F: Scalar>(x: F) -> F {
+    if F::REFERENCE {
+        return x * normal_cdf(x);
+    }
+    let a = x.abs();
+    let (tail, _) = a.kernel_normal_tail();
+    let positive = if x > F::zero() { x } else { F::zero() };
+    positive - a * tail
+}
+
+/// Φ(x) + x·φ(x), the tail and the density sharing one exponential.
+#[inline]
+fn gelu_derivative<F: Scalar>(x: F) -> F {
+    if F::REFERENCE {
+        return normal_cdf(x) + x * normal_pdf(x);
+    }
+    let (tail, density) = x.abs().kernel_normal_tail();
+    let cdf = if x > F::zero() { F::one() - tail } else { tail };
+    cdf + x * density
 }
 
 /// Standard normal CDF Φ(x) = erfc(−x/√2)/2, accurate in both tails.
