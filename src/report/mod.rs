@@ -100,14 +100,19 @@ pub struct RunReport {
     /// Warnings about the data (likely leaks, a skewed target, pooled levels, empty targets).
     #[serde(default)]
     pub data_warnings: Vec<String>,
-    /// Epochs whose learning rate differs from the epoch before (a schedule step, a plateau
-    /// cut or a guard cut), with the new rate.
+    /// Epochs at which the learning rate has moved by more than [`RATE_CHANGE_SHOWN`] from
+    /// the rate last listed (a schedule step, a plateau cut, a guard cut, or a gradual
+    /// schedule's progress), with the new rate.
     #[serde(default)]
     pub rate_changes: Vec<RateChange>,
     /// Epochs at whose end units were revived, with how many (all hidden layers together).
     #[serde(default)]
     pub revivals: Vec<RevivalEvent>,
 }
+
+/// Relative change of the learning rate that [`RunReport::rate_changes`] lists (a gradual
+/// schedule such as cosine is listed each time it has moved this far).
+pub const RATE_CHANGE_SHOWN: f64 = 0.1;
 
 /// A change of the learning rate between two epochs.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
@@ -182,15 +187,17 @@ impl RunReport {
 
     /// Fills `rate_changes` and `revivals` from the per-epoch entries.
     fn with_events(mut self) -> Self {
-        self.rate_changes = self
-            .epochs
-            .windows(2)
-            .filter(|w| w[1].lr != w[0].lr)
-            .map(|w| RateChange {
-                epoch: w[1].epoch,
-                lr: w[1].lr,
-            })
-            .collect();
+        self.rate_changes.clear();
+        let mut reference = self.epochs.first().map(|e| e.lr);
+        for e in self.epochs.iter().skip(1) {
+            if reference.is_some_and(|r| (e.lr / r - 1.0).abs() > RATE_CHANGE_SHOWN) {
+                self.rate_changes.push(RateChange {
+                    epoch: e.epoch,
+                    lr: e.lr,
+                });
+                reference = Some(e.lr);
+            }
+        }
         self.revivals = self
             .epochs
             .iter()
