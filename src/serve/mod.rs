@@ -5,4 +5,5 @@ pub mod atomic;
 pub mod interval;
 pub mod metrics;
 pub mod model;
+pub(crate) mod path;
 pub mod predict;
