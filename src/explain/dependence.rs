@@ -10,9 +10,7 @@
 //! model has them).
 
 use super::{input_offsets, Batch, ExplainOptions};
-use crate::data::{
-    civil_from_days, DataError, FeatureEncoding, Table, MISSING_LEVEL, OTHER_LEVEL,
-};
+use crate::data::{civil_from_days, DataError, FeatureEncoding, Table, MISSING_LEVEL, OTHER_LEVEL};
 use crate::serve::predict::Cell;
 use ndarray::{Array2, ArrayView2};
 use rand::seq::SliceRandom;
