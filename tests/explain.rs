@@ -331,3 +331,93 @@ fn a_column_shuffled_before_training_has_an_interval_around_zero() {
         "the weakest real column is told apart: {x3:?}"
     );
 }
+
+/// The command: `explain` writes the report with the names outside tools read and an SVG;
+/// `predict --explain` adds `attribution:<column>` and `baseline`, which add up to
+/// `prediction` (completeness, Sundararajan et al. 2017; printed predictions have f32
+/// precision, hence 1e-4 relative).
+#[test]
+fn command_explains_and_predict_adds_attribution_columns() {
+    let (model, test) = linear_model();
+    let dir = std::env::temp_dir().join(format!("relume-explain-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let model_path = dir.join("model.json");
+    model.save(&model_path).unwrap();
+    let data = dir.join("data.csv");
+    std::fs::write(&data, linear_csv(300, 23)).unwrap();
+    let _ = test;
+    let run = |args: &[&str]| {
+        let out = std::process::Command::new(env!("CARGO_BIN_EXE_relume"))
+            .args(args)
+            .output()
+            .unwrap();
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        String::from_utf8(out.stdout).unwrap()
+    };
+    let (report, plot) = (dir.join("e.json"), dir.join("e.svg"));
+    run(&[
+        "explain",
+        "--model",
+        model_path.to_str().unwrap(),
+        "--data",
+        data.to_str().unwrap(),
+        "--report",
+        report.to_str().unwrap(),
+        "--plot",
+        plot.to_str().unwrap(),
+    ]);
+    let json: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&report).unwrap()).unwrap();
+    let importance = json["importance"].as_array().unwrap();
+    assert_eq!(importance.len(), 4);
+    for i in importance {
+        for key in ["feature", "mean", "lower", "upper"] {
+            assert!(!i[key].is_null(), "{key} in {i}");
+        }
+    }
+    let pd = json["partial_dependence"].as_array().unwrap();
+    assert_eq!(pd.len(), 4);
+    assert_eq!(
+        pd[0]["grid"].as_array().unwrap().len(),
+        pd[0]["mean"].as_array().unwrap().len()
+    );
+    assert!(!pd[0]["ice"].as_array().unwrap().is_empty());
+    let svg = std::fs::read_to_string(&plot).unwrap();
+    assert!(svg.starts_with("<svg") && svg.contains("x1") && svg.contains("polyline"));
+
+    let csv = run(&[
+        "predict",
+        "--model",
+        model_path.to_str().unwrap(),
+        "--data",
+        data.to_str().unwrap(),
+        "--explain",
+    ]);
+    let mut lines = csv.lines();
+    let header: Vec<&str> = lines.next().unwrap().split(',').collect();
+    let at = |name: &str| header.iter().position(|h| *h == name).unwrap();
+    let columns: Vec<usize> = ["x1", "x2", "x3", "x4"]
+        .iter()
+        .map(|c| at(&format!("attribution:{c}")))
+        .collect();
+    let (prediction, baseline) = (at("prediction"), at("baseline"));
+    let mut rows = 0;
+    for line in lines {
+        let f: Vec<f64> = line
+            .split(',')
+            .map(|v| v.parse().unwrap_or(f64::NAN))
+            .collect();
+        let sum: f64 = columns.iter().map(|&c| f[c]).sum::<f64>() + f[baseline];
+        assert!(
+            (sum - f[prediction]).abs() <= 1e-4 * f[prediction].abs().max(1.0),
+            "{line}"
+        );
+        rows += 1;
+    }
+    assert_eq!(rows, 300);
+    std::fs::remove_dir_all(&dir).ok();
+}

@@ -5,8 +5,10 @@
 //! per layer `dead_fraction`, `zero_fraction`, `dormant_fraction`, `grad_norm`) are read by
 //! outside tools: keep them.
 
+mod explain_svg;
 mod svg;
 
+pub use explain_svg::plot_explanation;
 pub use svg::{plot_comparison, plot_run, PlotOptions};
 
 use crate::fit::monitor::{LayerStats, Monitor, TensorHealth, Warning};

@@ -127,7 +127,7 @@ impl Panel {
 }
 
 /// About five round tick values covering [lo, hi] (powers of ten on a log axis).
-fn ticks(lo: f64, hi: f64, log: bool) -> Vec<f64> {
+pub(super) fn ticks(lo: f64, hi: f64, log: bool) -> Vec<f64> {
     if log {
         let (a, b) = (lo.log10().floor() as i32, hi.log10().ceil() as i32);
         return (a..=b)
@@ -152,7 +152,7 @@ fn ticks(lo: f64, hi: f64, log: bool) -> Vec<f64> {
     out
 }
 
-fn label(v: f64) -> String {
+pub(super) fn label(v: f64) -> String {
     if v != 0.0 && (v.abs() < 1e-2 || v.abs() >= 1e4) {
         format!("{v:.0e}")
     } else if v.fract() == 0.0 {
