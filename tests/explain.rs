@@ -172,11 +172,11 @@ fn polyfit(x: &[f64], y: &[f64], degree: usize) -> Vec<f64> {
     let n = degree + 1;
     let mut a = vec![vec![0.0; n + 1]; n];
     for (&xi, &yi) in x.iter().zip(y) {
-        for r in 0..n {
-            for c in 0..n {
-                a[r][c] += xi.powi((r + c) as i32);
+        for (r, row) in a.iter_mut().enumerate() {
+            for (c, v) in row.iter_mut().take(n).enumerate() {
+                *v += xi.powi((r + c) as i32);
             }
-            a[r][n] += yi * xi.powi(r as i32);
+            row[n] += yi * xi.powi(r as i32);
         }
     }
     // Gauss–Jordan elimination on the normal equations (small and well scaled on [0, 1]).

@@ -197,7 +197,7 @@ fn rug(table: &Table, feature: &FeatureEncoding, seed: u64) -> Result<Vec<f64>, 
         _ => Vec::new(),
     };
     if values.len() > RUG_POINTS {
-        values.shuffle(&mut ChaCha8Rng::seed_from_u64(seed ^ 0x7275_67));
+        values.shuffle(&mut ChaCha8Rng::seed_from_u64(seed ^ 0x0072_7567));
         values.truncate(RUG_POINTS);
     }
     values.sort_by(f64::total_cmp);

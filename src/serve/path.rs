@@ -359,17 +359,16 @@ fn switch(steps: &[Step], layout: &Layout, at: usize, now: f64, s: &mut PathScra
     s.delta_slope[next.clone()].fill(0.0);
     s.delta_value[next.start + u] = ds * s.value[at] + dof;
     s.delta_slope[next.start + u] = ds * s.slope[at];
-    for level in k + 1..=last {
-        let here = layout.range(level);
-        for i in here.clone() {
+    let apply = |s: &mut PathScratch, level: usize| {
+        for i in layout.range(level) {
             s.value[i] += s.delta_value[i];
             s.slope[i] += s.delta_slope[i];
         }
-        if level == last {
-            break;
-        }
+    };
+    for (level, step) in steps.iter().enumerate().skip(k + 1) {
+        apply(s, level);
+        let here = layout.range(level);
         let there = layout.range(level + 1);
-        let step = &steps[level];
         let (dv_here, dv_there) = s.delta_value.split_at_mut(there.start);
         let (ds_here, ds_there) = s.delta_slope.split_at_mut(there.start);
         let (dv_in, ds_in) = (&dv_here[here.clone()], &ds_here[here.clone()]);
@@ -409,6 +408,7 @@ fn switch(steps: &[Step], layout: &Layout, at: usize, now: f64, s: &mut PathScra
             }
         }
     }
+    apply(s, last);
     // Upstream: the gradient reaching the unit's input changes by ds·(gradient at its output).
     let top = accumulation_level(steps);
     let here = layout.range(k);
