@@ -41,6 +41,8 @@ pub(crate) struct Layout {
     exact: bool,
     /// Some activation that is not piecewise linear has kinks (SELU, ELU with α ≠ 1).
     kinked: bool,
+    /// The flat ranges of the levels that feed an activation with kinks.
+    kinked_levels: Vec<std::ops::Range<usize>>,
 }
 
 impl Layout {
@@ -61,10 +63,21 @@ impl Layout {
         let kinked = steps
             .iter()
             .any(|s| matches!(s, Step::Act(a) if !piecewise_linear(a) && !a.kinks().is_empty()));
+        let kinked_levels = steps
+            .iter()
+            .enumerate()
+            .filter(|(_, s)| match s {
+                Step::Prelu(_) => true,
+                Step::Act(a) => !a.kinks().is_empty(),
+                Step::Affine { .. } => false,
+            })
+            .map(|(k, _)| offsets[k]..offsets[k + 1])
+            .collect();
         Layout {
             offsets,
             exact,
             kinked,
+            kinked_levels,
         }
     }
 
@@ -125,6 +138,11 @@ impl Pieces {
             },
             Step::Act(a) => leaky(a.negative_slope()),
         }
+    }
+
+    /// The pieces of `step`'s units if they all have the same (every step but PReLU).
+    fn shared(step: &Step) -> Option<Pieces> {
+        (!matches!(step, Step::Prelu(_))).then(|| Pieces::of(step, 0))
     }
 
     /// The piece at value `z` moving with slope `d` (at a kink: the side it moves into; not
@@ -312,16 +330,14 @@ fn walk(
     s.acc[..acc_range.len()].fill(0.0);
     let mut now = 0.0;
     for _ in 0..MAX_EVENTS {
-        let (at, when) = s.event[..total].iter().enumerate().fold(
-            (usize::MAX, f64::INFINITY),
-            |best, (i, &t)| {
-                if t < best.1 {
-                    (i, t)
-                } else {
-                    best
+        let (mut at, mut when) = (usize::MAX, f64::INFINITY);
+        for range in &layout.kinked_levels {
+            for (i, &t) in s.event[range.clone()].iter().enumerate() {
+                if t < when {
+                    (at, when) = (range.start + i, t);
                 }
-            },
-        );
+            }
+        }
         let end = when.min(1.0);
         let length = end - now;
         if length > 0.0 {
@@ -391,6 +407,7 @@ fn switch(steps: &[Step], layout: &Layout, at: usize, now: f64, s: &mut PathScra
                 }
             }
             _ => {
+                let shared = Pieces::shared(step);
                 for j in 0..here.len() {
                     let (a, b) = (dv_in[j], ds_in[j]);
                     if a == 0.0 && b == 0.0 {
@@ -400,7 +417,7 @@ fn switch(steps: &[Step], layout: &Layout, at: usize, now: f64, s: &mut PathScra
                     }
                     let flat = here.start + j;
                     let p = usize::from(s.piece[flat]);
-                    let unit = Pieces::of(step, j);
+                    let unit = shared.unwrap_or_else(|| Pieces::of(step, j));
                     dv_out[j] = unit.slope[p] * a;
                     ds_out[j] = unit.slope[p] * b;
                     s.event[flat] = unit.next(p, s.value[flat], s.slope[flat], now);
@@ -438,9 +455,10 @@ fn switch(steps: &[Step], layout: &Layout, at: usize, now: f64, s: &mut PathScra
                 }
             }
             step => {
+                let shared = Pieces::shared(step);
                 for (j, (g, &v)) in d_out.iter_mut().zip(d_in).enumerate() {
                     let p = usize::from(s.piece[below.start + j]);
-                    *g = Pieces::of(step, j).slope[p] * v;
+                    *g = shared.unwrap_or_else(|| Pieces::of(step, j)).slope[p] * v;
                 }
             }
         }
@@ -465,9 +483,10 @@ fn backward_step(steps: &[Step], layout: &Layout, k: usize, grad: &mut [f64], pi
             }
         }
         step => {
+            let shared = Pieces::shared(step);
             for (j, (g, &v)) in g_in.iter_mut().zip(g_out).enumerate() {
                 let p = usize::from(piece[from.start + j]);
-                *g = Pieces::of(step, j).slope[p] * v;
+                *g = shared.unwrap_or_else(|| Pieces::of(step, j)).slope[p] * v;
             }
         }
     }
