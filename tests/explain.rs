@@ -421,3 +421,62 @@ fn command_explains_and_predict_adds_attribution_columns() {
     assert_eq!(rows, 300);
     std::fs::remove_dir_all(&dir).ok();
 }
+
+/// Counts the allocations of the calling thread only, so the other tests of this file, which
+/// run in parallel, do not disturb the count.
+struct ThreadCounting;
+
+thread_local! {
+    static ALLOCATIONS: std::cell::Cell<usize> = const { std::cell::Cell::new(0) };
+}
+
+// SAFETY: forwards every call to the system allocator unchanged; the counter is a const
+// thread-local `Cell`, which never allocates.
+unsafe impl std::alloc::GlobalAlloc for ThreadCounting {
+    unsafe fn alloc(&self, layout: std::alloc::Layout) -> *mut u8 {
+        let _ = ALLOCATIONS.try_with(|c| c.set(c.get() + 1));
+        unsafe { std::alloc::System.alloc(layout) }
+    }
+
+    unsafe fn dealloc(&self, ptr: *mut u8, layout: std::alloc::Layout) {
+        unsafe { std::alloc::System.dealloc(ptr, layout) }
+    }
+
+    unsafe fn realloc(&self, ptr: *mut u8, layout: std::alloc::Layout, size: usize) -> *mut u8 {
+        let _ = ALLOCATIONS.try_with(|c| c.set(c.get() + 1));
+        unsafe { std::alloc::System.realloc(ptr, layout, size) }
+    }
+}
+
+#[global_allocator]
+static GLOBAL: ThreadCounting = ThreadCounting;
+
+/// A row's attributions reuse the scratch: no allocation, for a piecewise-linear and a smooth
+/// ensemble.
+#[test]
+fn attributing_a_row_allocates_nothing() {
+    let data = table(160, 3, 4, |x| x[0] * x[1] + x[2]);
+    for activation in [Activation::Relu, Activation::Gelu] {
+        let model = train(&data, activation, 2, 30);
+        let predictor = Predictor::new(&model);
+        let counted = ALLOCATIONS.with(|c| c.get());
+        let mut scratch = predictor.scratch();
+        assert!(
+            ALLOCATIONS.with(|c| c.get()) > counted,
+            "the counter sees allocations"
+        );
+        let mut out = vec![0.0; 4];
+        let rows: Vec<Vec<Cell<'static>>> = (0..50).map(|r| cells(&data, &predictor, r)).collect();
+        predictor
+            .attribute_row(&rows[0], &mut scratch, &mut out)
+            .unwrap();
+        let before = ALLOCATIONS.with(|c| c.get());
+        for row in &rows {
+            predictor
+                .attribute_row(row, &mut scratch, &mut out)
+                .unwrap();
+        }
+        let after = ALLOCATIONS.with(|c| c.get());
+        assert_eq!(after - before, 0, "{}", activation.name());
+    }
+}
