@@ -3,7 +3,7 @@
 //! middle 90% of the ICE curves span (faint), and a rug of the column's values in the table.
 //! Labelled in the table's own column names and the target's units.
 
-use super::svg::{label, ticks};
+use super::svg::{label, ticks as raw_ticks};
 use crate::data::civil_from_days;
 use crate::explain::{Dependence, Explanation, GridValue};
 use std::fmt::Write as _;
@@ -28,7 +28,7 @@ pub fn plot_explanation(e: &Explanation) -> String {
         bar_h * e.importance.len() as f64 + 50.0
     };
     let rows = e.partial_dependence.len().div_ceil(COLUMNS);
-    let height = top + imp_h + 60.0 + rows as f64 * (CELL_H + 70.0);
+    let height = top + imp_h + 90.0 + rows as f64 * (CELL_H + 70.0);
     let _ = writeln!(
         svg,
         r#"<svg xmlns="http://www.w3.org/2000/svg" width="{WIDTH}" height="{height:.0}" viewBox="0 0 {WIDTH} {height:.0}" font-family="sans-serif">"#
@@ -51,13 +51,14 @@ pub fn plot_explanation(e: &Explanation) -> String {
     let pd_top = top + imp_h + 30.0;
     let _ = writeln!(
         svg,
-        r#"<text x="20" y="{:.1}" font-size="17" font-weight="bold">How {target} moves with each column: partial dependence, middle 90% of ICE curves, rug of the data</text>"#,
-        pd_top
+        r##"<text x="20" y="{:.1}" font-size="17" font-weight="bold">How {target} moves with each column</text><text x="20" y="{:.1}" font-size="12" fill="#555">line: partial dependence · band: middle 90% of the ICE curves · ticks: the column's values in the table</text>"##,
+        pd_top,
+        pd_top + 18.0
     );
     for (i, d) in e.partial_dependence.iter().enumerate() {
         let (r, c) = (i / COLUMNS, i % COLUMNS);
         let x = 20.0 + 55.0 + c as f64 * (CELL_W);
-        let y = pd_top + 40.0 + r as f64 * (CELL_H + 70.0);
+        let y = pd_top + 55.0 + r as f64 * (CELL_H + 70.0);
         dependence(&mut svg, d, &target, x, y, CELL_W - 75.0, CELL_H);
     }
     svg.push_str("</svg>\n");
@@ -242,6 +243,15 @@ fn dependence(svg: &mut String, d: &Dependence, target: &str, left: f64, top: f6
             );
         }
     }
+}
+
+/// Round tick values over [lo, hi], with values within rounding of zero shown as 0.
+fn ticks(lo: f64, hi: f64, log: bool) -> Vec<f64> {
+    let span = (hi - lo).abs();
+    raw_ticks(lo, hi, log)
+        .into_iter()
+        .map(|t| if t.abs() < 1e-9 * span { 0.0 } else { t })
+        .collect()
 }
 
 /// Text safe inside SVG.
