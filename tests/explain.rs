@@ -480,3 +480,59 @@ fn attributing_a_row_allocates_nothing() {
         assert_eq!(after - before, 0, "{}", activation.name());
     }
 }
+
+/// A log target and a date column: completeness still holds in the target's own units
+/// (Sundararajan et al. 2017), and the date column gets a grid of day numbers over its
+/// training range with a rug.
+#[test]
+fn log_targets_and_dates_are_explained() {
+    let mut csv = String::from("day,x,y\n");
+    for i in 0..150 {
+        let (year, month, dom) = (2024, 1 + (i * 7) % 12, 1 + (i * 11) % 28);
+        let x = (i as f64 * 0.37).sin();
+        let y = (1.0 + 0.5 * x + 0.3 * ((month as f64) / 12.0 * std::f64::consts::TAU).sin()).exp();
+        csv += &format!("{year}-{month:02}-{dom:02},{x:.5},{y:.5}\n");
+    }
+    let data = read(&csv);
+    let recipe = Overrides {
+        hidden: Some(vec![16, 16]),
+        members: Some(2),
+        epochs: Some(60),
+        ..Overrides::default()
+    }
+    .recipe();
+    let spec = EncoderSpec {
+        target: "y".to_string(),
+        log_target: true,
+        ..EncoderSpec::default()
+    };
+    let model = Model::fit(&data, &spec, &recipe, MonitorConfig::default())
+        .unwrap()
+        .0;
+    let predictor = Predictor::new(&model);
+    let mut scratch = predictor.scratch();
+    let mut out = vec![0.0; 2];
+    for r in 0..40 {
+        let row = cells(&data, &predictor, r);
+        let a = predictor
+            .attribute_row(&row, &mut scratch, &mut out)
+            .unwrap();
+        let change = a.prediction.value - a.baseline;
+        let gap = (out.iter().sum::<f64>() - change).abs();
+        assert!(
+            gap <= 1e-3 * change.abs().max(1e-3),
+            "row {r}: {gap} of {change}"
+        );
+    }
+    let e = relume::explain(&model, &data, &relume::ExplainOptions::default()).unwrap();
+    let day = e
+        .partial_dependence
+        .iter()
+        .find(|d| d.feature == "day")
+        .unwrap();
+    assert_eq!(day.kind, "date");
+    assert_eq!(day.grid.len(), relume::explain::GRID_POINTS);
+    assert!(!day.rug.is_empty());
+    assert!(day.mean.iter().all(|v| v.is_finite() && *v > 0.0));
+    assert!(relume::report::plot_explanation(&e).contains("2024-"));
+}

@@ -85,9 +85,11 @@ fn grid_of(feature: &FeatureEncoding, points: usize) -> (Vec<GridValue>, Vec<Vec
                 .map(|k| min + (max - min) * k as f64 / (count - 1).max(1) as f64)
                 .collect();
             let index = std::collections::HashMap::new();
-            let slots = values
+            // A value that does not encode (a date beyond the calendar's reach in a damaged
+            // model file) is left out of the grid rather than stopping the explanation.
+            let (values, slots): (Vec<f64>, Vec<Vec<f64>>) = values
                 .iter()
-                .map(|&v| {
+                .filter_map(|&v| {
                     let mut out = vec![0.0; width];
                     let text;
                     let cell = if let FeatureEncoding::Date { .. } = feature {
@@ -98,10 +100,10 @@ fn grid_of(feature: &FeatureEncoding, points: usize) -> (Vec<GridValue>, Vec<Vec
                     };
                     feature
                         .encode_cell(&index, crate::data::UnseenPolicy::Flag, cell, &mut out)
-                        .expect("a value inside the training range encodes");
-                    out
+                        .ok()
+                        .map(|_| (v, out))
                 })
-                .collect();
+                .unzip();
             (values.into_iter().map(GridValue::Number).collect(), slots)
         }
     }
