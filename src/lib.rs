@@ -28,6 +28,7 @@
 // The stages a table goes through, bottom up: every module imports only from the stages
 // above it in this list.
 pub mod data;
+pub mod explain;
 pub mod fit;
 pub mod kernels;
 pub mod nn;
@@ -36,6 +37,7 @@ pub mod serve;
 pub mod sweep;
 
 pub use data::{Encoder, EncoderSpec, Table};
+pub use explain::{explain, Dependence, ExplainOptions, Explanation, Importance};
 pub use fit::monitor::{Monitor, MonitorConfig, Revival};
 pub use fit::objective::Objective;
 pub use fit::optim::{Adam, Optimizer, OptimizerChoice};
@@ -54,7 +56,7 @@ pub use nn::loss::Loss;
 pub use nn::network::{Network, NetworkPlan};
 pub use report::RunReport;
 pub use serve::model::Model;
-pub use serve::predict::Predictor;
+pub use serve::predict::{Predictor, RowAttribution};
 
 /// The README's code, compiled and run as a doctest so it stays true.
 #[cfg(doctest)]

@@ -66,6 +66,12 @@ enum Command {
         after_help = "Examples:\n  relume cost --inputs 10 --layers 64,64 --activations relu,gelu,elu,tanh --table cost.md --plot cost.svg\n  relume cost --model cold.json --activations relu,leaky-relu,elu,gelu,tanh --accuracy cmp.json --plot pick.svg"
     )]
     Cost(CostArgs),
+    /// Explain a model on a table: permutation importance (needs the target column),
+    /// partial dependence and ICE curves of every input column.
+    #[command(
+        after_help = "Example:\n  relume explain --model cold.json --data examples/data/cold_store.csv --report explain.json --plot explain.svg"
+    )]
+    Explain(ExplainArgs),
 }
 
 #[derive(Args, Debug)]
@@ -109,6 +115,27 @@ struct CostArgs {
     /// Write the SVG chart here.
     #[arg(long, value_name = "C.svg")]
     plot: Option<PathBuf>,
+}
+
+#[derive(Args, Debug)]
+struct ExplainArgs {
+    /// The model file.
+    #[arg(long, value_name = "MODEL")]
+    model: PathBuf,
+    #[command(flatten)]
+    table: TableArgs,
+    /// Write the explanation as JSON here.
+    #[arg(long, value_name = "E.json")]
+    report: Option<PathBuf>,
+    /// Write the SVG chart here.
+    #[arg(long, value_name = "E.svg")]
+    plot: Option<PathBuf>,
+    /// Shuffles per column for the importance.
+    #[arg(long, default_value_t = relume::explain::REPEATS)]
+    repeats: usize,
+    /// Seed of the shuffles and row samples.
+    #[arg(long, default_value_t = 0)]
+    seed: u64,
 }
 
 #[derive(Args, Debug)]
@@ -474,6 +501,10 @@ struct PredictArgs {
     /// Columns copied from the input to identify each row (default: the row's line number).
     #[arg(long, value_delimiter = ',', value_name = "COL,..")]
     key: Vec<String>,
+    /// Add one attribution:<column> per input (integrated gradients, target units) and the
+    /// baseline prediction they start from: attributions + baseline = prediction.
+    #[arg(long)]
+    explain: bool,
 }
 
 #[derive(Args, Debug)]
@@ -547,6 +578,7 @@ fn main() -> ExitCode {
         Command::Compare(a) => compare(*a),
         Command::Merge(a) => merge(a),
         Command::Cost(a) => cost(a),
+        Command::Explain(a) => explain(a),
     });
     match outcome {
         Ok(Ok(())) => ExitCode::SUCCESS,
@@ -1021,6 +1053,11 @@ fn predict(a: PredictArgs) -> Result<(), Failure> {
         table.column(k)?;
     }
     let rows = predictor.predict_table(&table)?;
+    let attributions = if a.explain {
+        Some(relume::explain::attribute_table(&predictor, &table)?)
+    } else {
+        None
+    };
     let mut text = String::new();
     let keys: Vec<String> = if a.key.is_empty() {
         vec!["line".to_string()]
@@ -1028,8 +1065,15 @@ fn predict(a: PredictArgs) -> Result<(), Failure> {
         a.key.clone()
     };
     let header: Vec<String> = keys.iter().map(|k| csv_field(k)).collect();
+    let extra: String = attributions.as_ref().map_or(String::new(), |t| {
+        t.features
+            .iter()
+            .map(|f| format!(",{}", csv_field(&format!("attribution:{f}"))))
+            .collect::<String>()
+            + ",baseline"
+    });
     text += &format!(
-        "{},prediction,lower,upper,extrapolated,issue\n",
+        "{},prediction,lower,upper,extrapolated,issue{extra}\n",
         header.join(",")
     );
     let (mut failed, mut flagged, mut unseen) = (0, 0, 0);
@@ -1068,8 +1112,17 @@ fn predict(a: PredictArgs) -> Result<(), Failure> {
             }
         };
         let number = |v: Option<f64>| v.map_or(String::new(), shortest_f32);
+        let explained = attributions.as_ref().map_or(String::new(), |t| {
+            let width = t.features.len();
+            match &t.rows[r] {
+                Some(v) => v.iter().map(|x| format!(",{x}")).collect::<String>(),
+                None => ",".repeat(width),
+            }
+        }) + &attributions
+            .as_ref()
+            .map_or(String::new(), |t| format!(",{}", t.baseline));
         text += &format!(
-            "{},{},{},{},{},{}\n",
+            "{},{},{},{},{},{}{explained}\n",
             key_values.join(","),
             number(row.value),
             number(row.lower),
@@ -1106,6 +1159,44 @@ fn predict(a: PredictArgs) -> Result<(), Failure> {
     }
     if failed > 0 {
         eprintln!("{failed} rows could not be predicted (see the issue column)");
+    }
+    Ok(())
+}
+
+fn explain(a: ExplainArgs) -> Result<(), Failure> {
+    check_outputs(&[
+        ("--report", a.report.as_deref()),
+        ("--plot", a.plot.as_deref()),
+    ])?;
+    let model = Model::load(&a.model)?;
+    let table = read_table(&a.table, &model.encoder.text_columns())?;
+    let options = relume::ExplainOptions {
+        repeats: a.repeats,
+        seed: a.seed,
+        ..relume::ExplainOptions::default()
+    };
+    let e = relume::explain(&model, &table, &options)?;
+    let target = &e.target;
+    match e.rmse {
+        Some(rmse) => println!("{} rows, RMSE {rmse:.4} {target} units", e.rows),
+        None => println!("{} rows; no '{target}' column, so no importance", e.rows),
+    }
+    for i in &e.importance {
+        println!(
+            "  {:<24} RMSE rise {:>10.4}  [{:.4}, {:.4}]",
+            i.feature, i.mean, i.lower, i.upper
+        );
+    }
+    let outputs = [
+        (a.report.as_deref(), e.to_json()),
+        (a.plot.as_deref(), relume::report::plot_explanation(&e)),
+    ];
+    for (path, text) in outputs {
+        if let Some(path) = path {
+            relume::serve::atomic::write_atomic(path, text.as_bytes())
+                .map_err(|err| io_failure(path, err))?;
+            eprintln!("written to {}", path.display());
+        }
     }
     Ok(())
 }

@@ -6,8 +6,10 @@
 //! outside tools: keep them.
 
 pub mod cost_svg;
+mod explain_svg;
 mod svg;
 
+pub use explain_svg::plot_explanation;
 pub use svg::{plot_comparison, plot_run, PlotOptions};
 
 use crate::fit::monitor::{LayerStats, Monitor, TensorHealth, Warning};

@@ -5,5 +5,6 @@ pub mod atomic;
 pub mod interval;
 pub mod metrics;
 pub mod model;
+pub(crate) mod path;
 pub mod predict;
 pub mod request;
