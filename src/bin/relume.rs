@@ -532,6 +532,8 @@ enum Failure {
     User(String),
     /// A bug or an environment problem: exit 1.
     Internal(String),
+    /// The reader of standard output went away (`| head`): stop, exit 0, say nothing.
+    Quiet,
 }
 
 impl From<DataError> for Failure {
@@ -581,7 +583,7 @@ fn main() -> ExitCode {
         Command::Explain(a) => explain(a),
     });
     match outcome {
-        Ok(Ok(())) => ExitCode::SUCCESS,
+        Ok(Ok(())) | Ok(Err(Failure::Quiet)) => ExitCode::SUCCESS,
         Ok(Err(Failure::User(message))) => {
             eprintln!("relume: {message}");
             ExitCode::from(2)
@@ -610,14 +612,19 @@ fn check_thread_variable() -> Result<(), String> {
 
 /// Reads the table; `model_text` adds the columns a model reads as text (categories, dates),
 /// so a column is typed as the model was trained on it.
-fn read_table(args: &TableArgs, model_text: &[String]) -> Result<Table, Failure> {
-    let options = ReadOptions {
+/// The read options the table arguments ask for, with the model's text columns.
+fn read_options(args: &TableArgs, model_text: &[String]) -> ReadOptions {
+    ReadOptions {
         text_columns: args.text_columns.clone(),
         allow_non_finite: args.allow_non_finite,
         model_text_columns: model_text.to_vec(),
         separator: args.separator.map(|s| s.byte()),
         decimal_comma: args.decimal_comma,
-    };
+    }
+}
+
+fn read_table(args: &TableArgs, model_text: &[String]) -> Result<Table, Failure> {
+    let options = read_options(args, model_text);
     Ok(if args.data == "-" {
         Table::read(std::io::stdin().lock(), "stdin", &options)?
     } else {
@@ -1045,109 +1052,139 @@ fn cell_text(table: &Table, column: &str, row: usize) -> Result<String, Failure>
     })
 }
 
+/// Rows read, predicted and written at a time by `predict` and `evaluate`, so their memory
+/// does not grow with the table.
+const CHUNK_ROWS: usize = 8192;
+
+/// Where `predict` writes: a file that appears whole only when every row is written, or
+/// standard output as the rows come.
+enum Sink {
+    File(relume::serve::atomic::AtomicWriter, PathBuf),
+    Stdout(std::io::BufWriter<std::io::StdoutLock<'static>>),
+}
+
+impl Sink {
+    fn open(out: Option<&Path>) -> Result<Sink, Failure> {
+        Ok(match out {
+            Some(path) => Sink::File(
+                relume::serve::atomic::AtomicWriter::create(path)
+                    .map_err(|e| io_failure(path, e))?,
+                path.to_path_buf(),
+            ),
+            None => Sink::Stdout(std::io::BufWriter::with_capacity(
+                1 << 16,
+                std::io::stdout().lock(),
+            )),
+        })
+    }
+
+    fn write(&mut self, text: &str) -> Result<(), Failure> {
+        let (result, path) = match self {
+            Sink::File(w, path) => (w.write_all(text.as_bytes()), Some(path.as_path())),
+            Sink::Stdout(w) => (w.write_all(text.as_bytes()), None),
+        };
+        result.map_err(|e| write_failure(path, e))
+    }
+
+    /// Makes the file appear (or flushes standard output).
+    fn finish(self) -> Result<(), Failure> {
+        match self {
+            Sink::File(w, path) => w.commit().map_err(|e| io_failure(&path, e)),
+            Sink::Stdout(mut w) => w.flush().map_err(|e| write_failure(None, e)),
+        }
+    }
+}
+
+/// A failed write; a reader that stopped early (`| head`) is [`Failure::Quiet`].
+fn write_failure(path: Option<&Path>, e: std::io::Error) -> Failure {
+    match path {
+        Some(p) => io_failure(p, e),
+        None if e.kind() == std::io::ErrorKind::BrokenPipe => Failure::Quiet,
+        None => Failure::Internal(format!("cannot write to standard output: {e}")),
+    }
+}
+
+/// Reads the table of `args` in chunks of [`CHUNK_ROWS`] rows (the model's text columns read
+/// as text) and hands each to `each`; returns the rows read.
+fn for_each_chunk(
+    args: &TableArgs,
+    model_text: &[String],
+    each: impl FnMut(Table) -> Result<(), Failure>,
+) -> Result<usize, Failure> {
+    let options = read_options(args, model_text);
+    if args.data == "-" {
+        Table::read_chunks(std::io::stdin().lock(), "stdin", &options, CHUNK_ROWS, each)
+    } else {
+        let path = Path::new(&args.data);
+        let file = std::fs::File::open(path).map_err(|e| DataError::Io {
+            source_name: args.data.clone(),
+            message: format!("cannot open: {e}"),
+        })?;
+        Table::read_chunks(
+            file,
+            &path.display().to_string(),
+            &options,
+            CHUNK_ROWS,
+            each,
+        )
+    }
+}
+
+/// Rows `predict` flagged or could not predict.
+#[derive(Default)]
+struct PredictCounts {
+    failed: usize,
+    flagged: usize,
+    unseen: usize,
+}
+
 fn predict(a: PredictArgs) -> Result<(), Failure> {
     check_outputs(&[("--out", a.out.as_deref())])?;
     let predictor = Predictor::load(&a.model)?;
-    let table = read_table(&a.table, &predictor.encoder().text_columns())?;
-    for k in &a.key {
-        table.column(k)?;
-    }
-    let rows = predictor.predict_table(&table)?;
-    let attributions = if a.explain {
-        Some(relume::explain::attribute_table(&predictor, &table)?)
-    } else {
-        None
-    };
-    let mut text = String::new();
     let keys: Vec<String> = if a.key.is_empty() {
         vec!["line".to_string()]
     } else {
         a.key.clone()
     };
     let header: Vec<String> = keys.iter().map(|k| csv_field(k)).collect();
-    let extra: String = attributions.as_ref().map_or(String::new(), |t| {
-        t.features
+    let extra: String = if a.explain {
+        predictor
+            .feature_names()
             .iter()
             .map(|f| format!(",{}", csv_field(&format!("attribution:{f}"))))
             .collect::<String>()
             + ",baseline"
-    });
-    text += &format!(
+    } else {
+        String::new()
+    };
+    let mut sink = Sink::open(a.out.as_deref())?;
+    sink.write(&format!(
         "{},prediction,lower,upper,extrapolated,issue{extra}\n",
         header.join(",")
-    );
-    let (mut failed, mut flagged, mut unseen) = (0, 0, 0);
-    for (r, row) in rows.iter().enumerate() {
-        let key_values: Vec<String> = if a.key.is_empty() {
-            vec![row.line.to_string()]
-        } else {
-            a.key
-                .iter()
-                .map(|k| cell_text(&table, k, r).map(|t| csv_field(&t)))
-                .collect::<Result<_, _>>()?
-        };
-        let issue = match &row.error {
-            Some(e) => {
-                failed += 1;
-                e.clone()
-            }
-            None => {
-                let mut parts = Vec::new();
-                if !row.out_of_range.is_empty() {
-                    flagged += 1;
-                    parts.push(format!(
-                        "outside the training range: {}",
-                        row.out_of_range.join(" ")
-                    ));
-                }
-                if !row.unseen.is_empty() {
-                    unseen += 1;
-                    parts.push(format!(
-                        "category not seen in training (predicted as {}): {}",
-                        relume::data::OTHER_LEVEL,
-                        row.unseen.join(" ")
-                    ));
-                }
-                parts.join("; ")
-            }
-        };
-        let number = |v: Option<f64>| v.map_or(String::new(), shortest_f32);
-        let explained = attributions.as_ref().map_or(String::new(), |t| {
-            let width = t.features.len();
-            match &t.rows[r] {
-                Some(v) => v.iter().map(|x| format!(",{x}")).collect::<String>(),
-                None => ",".repeat(width),
-            }
-        }) + &attributions
-            .as_ref()
-            .map_or(String::new(), |t| format!(",{}", t.baseline));
-        text += &format!(
-            "{},{},{},{},{},{}{explained}\n",
-            key_values.join(","),
-            number(row.value),
-            number(row.lower),
-            number(row.upper),
-            !row.out_of_range.is_empty(),
-            csv_field(&issue)
-        );
+    ))?;
+    let mut counts = PredictCounts::default();
+    let mut text = String::new();
+    let written = for_each_chunk(&a.table, &predictor.encoder().text_columns(), |table| {
+        text.clear();
+        predict_chunk(&predictor, &table, &a, &mut counts, &mut text)?;
+        sink.write(&text)
+    });
+    let rows = match written {
+        Err(Failure::Quiet) => return Ok(()),
+        other => other?,
+    };
+    match sink.finish() {
+        Err(Failure::Quiet) => return Ok(()),
+        other => other?,
     }
-    match &a.out {
-        Some(path) => {
-            relume::serve::atomic::write_atomic(path, text.as_bytes())
-                .map_err(|e| io_failure(path, e))?;
-            eprintln!("{} predictions written to {}", rows.len(), path.display());
-        }
-        None => match std::io::stdout().write_all(text.as_bytes()) {
-            // A reader that stops early (`| head`) is not an error.
-            Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => return Ok(()),
-            Err(e) => {
-                return Err(Failure::Internal(format!(
-                    "cannot write to standard output: {e}"
-                )))
-            }
-            Ok(()) => {}
-        },
+    if let Some(path) = &a.out {
+        eprintln!("{rows} predictions written to {}", path.display());
     }
+    let PredictCounts {
+        failed,
+        flagged,
+        unseen,
+    } = counts;
     if flagged > 0 {
         eprintln!("{flagged} rows are outside the training range (extrapolation): check them");
     }
@@ -1159,6 +1196,81 @@ fn predict(a: PredictArgs) -> Result<(), Failure> {
     }
     if failed > 0 {
         eprintln!("{failed} rows could not be predicted (see the issue column)");
+    }
+    Ok(())
+}
+
+/// The CSV lines of one chunk's predictions, appended to `text`.
+fn predict_chunk(
+    predictor: &Predictor,
+    table: &Table,
+    a: &PredictArgs,
+    counts: &mut PredictCounts,
+    text: &mut String,
+) -> Result<(), Failure> {
+    for k in &a.key {
+        table.column(k)?;
+    }
+    let rows = predictor.predict_table(table)?;
+    let attributions = if a.explain {
+        Some(relume::explain::attribute_table(predictor, table)?)
+    } else {
+        None
+    };
+    for (r, row) in rows.iter().enumerate() {
+        let key_values: Vec<String> = if a.key.is_empty() {
+            vec![row.line.to_string()]
+        } else {
+            a.key
+                .iter()
+                .map(|k| cell_text(table, k, r).map(|t| csv_field(&t)))
+                .collect::<Result<_, _>>()?
+        };
+        let issue = match &row.error {
+            Some(e) => {
+                counts.failed += 1;
+                e.clone()
+            }
+            None => {
+                let mut parts = Vec::new();
+                if !row.out_of_range.is_empty() {
+                    counts.flagged += 1;
+                    parts.push(format!(
+                        "outside the training range: {}",
+                        row.out_of_range.join(" ")
+                    ));
+                }
+                if !row.unseen.is_empty() {
+                    counts.unseen += 1;
+                    parts.push(format!(
+                        "category not seen in training (predicted as {}): {}",
+                        relume::data::OTHER_LEVEL,
+                        row.unseen.join(" ")
+                    ));
+                }
+                parts.join("; ")
+            }
+        };
+        let number = |v: Option<f64>| v.map_or(String::new(), shortest_f32);
+        let explained = attributions.as_ref().map_or(String::new(), |t| {
+            let parts = match &t.rows[r] {
+                Some(v) => v.iter().map(|x| format!(",{x}")).collect::<String>(),
+                None => ",".repeat(t.features.len()),
+            };
+            format!("{parts},{}", t.baseline)
+        });
+        let _ = std::fmt::Write::write_fmt(
+            text,
+            format_args!(
+                "{},{},{},{},{},{}{explained}\n",
+                key_values.join(","),
+                number(row.value),
+                number(row.lower),
+                number(row.upper),
+                !row.out_of_range.is_empty(),
+                csv_field(&issue)
+            ),
+        );
     }
     Ok(())
 }
@@ -1207,42 +1319,47 @@ fn evaluate(a: EvaluateArgs) -> Result<(), Failure> {
     let loss = model.summary.loss;
     let predictor = Predictor::new(&model);
     drop(model);
-    let table = read_table(&a.table, &predictor.encoder().text_columns())?;
-    let encoder = predictor.encoder();
-    let target = encoder.target.name.clone();
-    let column = table.column(&target)?;
-    let relume::data::ColumnData::Number(truth) = &column.data else {
-        return Err(Failure::User(format!(
-            "{}: the target column '{target}' is not numeric",
-            table.source
-        )));
+    let target = predictor.encoder().target.name.clone();
+    let source = if a.table.data == "-" {
+        "stdin".to_string()
+    } else {
+        a.table.data.clone()
     };
-    let rows = predictor.predict_table(&table)?;
     let (mut predictions, mut targets) = (Vec::new(), Vec::new());
     let (mut failed, mut flagged) = (0, 0);
     let (mut inside, mut width, mut with_interval) = (0usize, 0.0, 0usize);
-    for (r, row) in rows.iter().enumerate() {
-        match row.value {
-            Some(v) if !truth[r].is_nan() => {
-                predictions.push(v);
-                targets.push(truth[r]);
-                flagged += usize::from(!row.out_of_range.is_empty());
-                if let (Some(lo), Some(hi)) = (row.lower, row.upper) {
-                    with_interval += 1;
-                    inside += usize::from(lo <= truth[r] && truth[r] <= hi);
-                    width += hi - lo;
+    for_each_chunk(&a.table, &predictor.encoder().text_columns(), |table| {
+        let column = table.column(&target)?;
+        let relume::data::ColumnData::Number(truth) = &column.data else {
+            return Err(Failure::User(format!(
+                "{}: the target column '{target}' is not numeric",
+                table.source
+            )));
+        };
+        for (r, row) in predictor.predict_table(&table)?.iter().enumerate() {
+            match row.value {
+                Some(v) if !truth[r].is_nan() => {
+                    predictions.push(v);
+                    targets.push(truth[r]);
+                    flagged += usize::from(!row.out_of_range.is_empty());
+                    if let (Some(lo), Some(hi)) = (row.lower, row.upper) {
+                        with_interval += 1;
+                        inside += usize::from(lo <= truth[r] && truth[r] <= hi);
+                        width += hi - lo;
+                    }
                 }
+                _ => failed += 1,
             }
-            _ => failed += 1,
         }
-    }
+        Ok(())
+    })?;
     let nominal = predictor.interval().map(|c| c.coverage);
     let coverage = (with_interval > 0).then(|| inside as f64 / with_interval as f64);
     let mean_width = (with_interval > 0).then(|| width / with_interval as f64);
     if predictions.is_empty() {
         return Err(Failure::User(format!(
             "{}: no row could be evaluated (empty targets or unusable rows)",
-            table.source
+            source
         )));
     }
     let m = Metrics::compute(&predictions, &targets);
@@ -1305,7 +1422,7 @@ fn evaluate(a: EvaluateArgs) -> Result<(), Failure> {
             "pinball_loss": quantile.map(|q| q.1),
             "share_below": quantile.map(|q| q.2),
             "model": a.model.display().to_string(),
-            "data": table.source,
+            "data": source,
         });
         let text =
             serde_json::to_string_pretty(&json).map_err(|e| Failure::Internal(e.to_string()))?;
