@@ -379,6 +379,22 @@ fn rows_with_unseen_categories_or_out_of_range_values_are_flagged() {
         .predict_row(&[Cell::Number(0.5)], &mut scratch)
         .unwrap_err();
     assert_eq!(err.kind, RowErrorKind::WrongLength);
+    // Finite values whose standardized form leaves f32 (or comes near it) are refused: they
+    // gave a meaningless number (1e300 predicted the same as -1e300) before.
+    for huge in [1e38, 1e300, -1e300] {
+        let err = predictor
+            .predict_row(
+                &[Cell::Number(huge), Cell::Number(0.2), Cell::Text("east")],
+                &mut scratch,
+            )
+            .unwrap_err();
+        assert_eq!(
+            (err.feature, err.kind),
+            (0, RowErrorKind::Overflow),
+            "{huge}"
+        );
+        assert!(predictor.explain(&err).contains("'a'"));
+    }
     // The table path flags per row instead of failing the whole table.
     let table = read("a,b,site\n0.5,0.2,west\n0.5,0.2,east\n99,0.2,east\n").unwrap();
     let rows = predictor.predict_table(&table).unwrap();

@@ -374,6 +374,9 @@ pub enum CellProblem {
     NotADate,
     /// A number that is not finite.
     NonFinite,
+    /// A finite number so far outside the training range that the model's f32 arithmetic
+    /// overflows on it.
+    Overflow,
 }
 
 /// What encoding a cell found besides its inputs.

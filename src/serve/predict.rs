@@ -44,6 +44,11 @@ pub struct RowPrediction {
     pub unseen: bool,
 }
 
+/// Largest standardized input a row may have: 1e15 training standard deviations (far past
+/// any extrapolation worth a number, and well inside f32, whose products with the weights
+/// would otherwise overflow).
+pub const MAX_SCALED_INPUT: f32 = 1e15;
+
 /// Caller-owned working memory for [`Predictor::predict_row`]; make one per thread with
 /// [`Predictor::scratch`] and reuse it.
 #[derive(Clone, Debug)]
@@ -220,6 +225,15 @@ impl Predictor {
             RowErrorKind::NotANumber => format!("'{name}' must be a number"),
             RowErrorKind::NotACategory => format!("'{name}' must be a category (text)"),
             RowErrorKind::NonFinite => format!("'{name}' is not a finite number"),
+            RowErrorKind::Overflow if error.feature >= self.encoder.features.len() => {
+                "the row is so far outside the training range that the model cannot compute \
+                 with it"
+                    .to_string()
+            }
+            RowErrorKind::Overflow => format!(
+                "'{name}' is so far outside the training range that the model cannot compute \
+                 with it"
+            ),
         }
     }
 
@@ -269,9 +283,27 @@ impl Predictor {
                     ((v - self.inputs.mean[k + j]) / self.inputs.sd[k + j]) as f32
                 };
             }
+            // A scaled value beyond f32 (or one the network cannot carry) would give a
+            // meaningless number: refuse the row instead.
+            if a[k..k + w]
+                .iter()
+                .any(|v| !v.is_finite() || v.abs() > MAX_SCALED_INPUT)
+            {
+                return Err(RowError {
+                    feature: i,
+                    kind: RowErrorKind::Overflow,
+                });
+            }
             k += w;
         }
         let scaled = self.ensemble(scratch, k);
+        if !scaled.is_finite() {
+            // No single input to blame: the index past the last names the row as a whole.
+            return Err(RowError {
+                feature: features.len(),
+                kind: RowErrorKind::Overflow,
+            });
+        }
         let (lower, upper) = match &self.interval {
             Some(c) => {
                 let (lo, hi) = c.around(scaled);
