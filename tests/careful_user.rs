@@ -3,57 +3,12 @@
 //! made here. Every test failed on the command as it was when the defects were reported
 //! (commit bdb0fc0): run with `RELUME_TEST_BIN=<path of an older relume>` to see that.
 
-use std::path::{Path, PathBuf};
+mod common;
+
+use common::cli::{bin, dir, fails, ok, path, relume, stderr, write};
+
+use std::path::Path;
 use std::process::{Command, Output, Stdio};
-use std::sync::OnceLock;
-
-fn bin() -> String {
-    std::env::var("RELUME_TEST_BIN").unwrap_or_else(|_| env!("CARGO_BIN_EXE_relume").to_string())
-}
-
-fn relume(args: &[&str]) -> Output {
-    Command::new(bin()).args(args).output().unwrap()
-}
-
-fn dir() -> &'static Path {
-    static DIR: OnceLock<PathBuf> = OnceLock::new();
-    DIR.get_or_init(|| {
-        let d = std::env::temp_dir().join(format!("relume-careful-{}", std::process::id()));
-        std::fs::create_dir_all(&d).unwrap();
-        d
-    })
-}
-
-fn path(name: &str) -> String {
-    dir().join(name).display().to_string()
-}
-
-fn write(name: &str, text: &str) -> String {
-    let p = path(name);
-    std::fs::write(&p, text).unwrap();
-    p
-}
-
-fn stderr(o: &Output) -> String {
-    String::from_utf8_lossy(&o.stderr).to_string()
-}
-
-/// Runs, expects exit 2 without a panic, returns standard error.
-fn fails(args: &[&str]) -> String {
-    let o = relume(args);
-    let err = stderr(&o);
-    assert_eq!(o.status.code(), Some(2), "{args:?}: {err}");
-    assert!(!err.contains("panicked"), "{err}");
-    err
-}
-
-/// Runs, expects success, returns (stdout, stderr).
-fn ok(args: &[&str]) -> (String, String) {
-    let o = relume(args);
-    let err = stderr(&o);
-    assert!(o.status.success(), "{args:?}: {err}");
-    (String::from_utf8_lossy(&o.stdout).to_string(), err)
-}
 
 /// `rows` rows of a, b (numbers) and y = 2a − b + 0.1·(row mod 7), with `first` as the first
 /// data row's text for column a when given.

@@ -1,30 +1,14 @@
 //! End-to-end tests of the `relume` binary on the demo table and on bad inputs.
 
-use std::path::{Path, PathBuf};
-use std::process::{Command, Output, Stdio};
+mod common;
+
+use common::cli::{fails, path, relume, write};
+
+use std::path::Path;
+use std::process::{Command, Stdio};
 use std::sync::OnceLock;
 
 const DEMO: &str = concat!(env!("CARGO_MANIFEST_DIR"), "/examples/data/cold_store.csv");
-
-fn relume(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_relume"))
-        .args(args)
-        .output()
-        .unwrap()
-}
-
-fn dir() -> &'static Path {
-    static DIR: OnceLock<PathBuf> = OnceLock::new();
-    DIR.get_or_init(|| {
-        let d = std::env::temp_dir().join(format!("relume-cli-{}", std::process::id()));
-        std::fs::create_dir_all(&d).unwrap();
-        d
-    })
-}
-
-fn path(name: &str) -> String {
-    dir().join(name).display().to_string()
-}
 
 /// Trains once on the demo table; every test that needs a model uses this one.
 fn model() -> String {
@@ -59,24 +43,6 @@ fn model() -> String {
             out
         })
         .clone()
-}
-
-fn write(name: &str, text: &str) -> String {
-    let p = path(name);
-    std::fs::write(&p, text).unwrap();
-    p
-}
-
-/// Runs, expects exit 2, and returns standard error.
-fn fails(args: &[&str]) -> String {
-    let o = relume(args);
-    let err = String::from_utf8_lossy(&o.stderr).to_string();
-    assert_eq!(o.status.code(), Some(2), "{args:?}: {err}");
-    assert!(
-        !err.contains("panicked") && !err.contains("RUST_BACKTRACE"),
-        "{err}"
-    );
-    err
 }
 
 #[test]

@@ -1,48 +1,13 @@
 //! The command's loss, schedule, clipping, dropout, L1 and revival options: what each does, what
 //! the model file and `evaluate` say about it, and the combinations that are refused.
 
+mod common;
+
+use common::cli::{fails, ok, path, relume};
+
 use rand::{Rng, SeedableRng};
 use rand_distr::{Distribution, StandardNormal};
-use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
-use std::sync::OnceLock;
-
-fn relume(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_relume"))
-        .args(args)
-        .output()
-        .unwrap()
-}
-
-fn dir() -> &'static Path {
-    static DIR: OnceLock<PathBuf> = OnceLock::new();
-    DIR.get_or_init(|| {
-        let d = std::env::temp_dir().join(format!("relume-learning-{}", std::process::id()));
-        std::fs::create_dir_all(&d).unwrap();
-        d
-    })
-}
-
-fn path(name: &str) -> String {
-    dir().join(name).display().to_string()
-}
-
-/// Runs, expects success, returns standard error.
-fn ok(args: &[&str]) -> String {
-    let o = relume(args);
-    let err = String::from_utf8_lossy(&o.stderr).to_string();
-    assert!(o.status.success(), "{args:?}: {err}");
-    err
-}
-
-/// Runs, expects exit 2, returns standard error.
-fn fails(args: &[&str]) -> String {
-    let o = relume(args);
-    let err = String::from_utf8_lossy(&o.stderr).to_string();
-    assert_eq!(o.status.code(), Some(2), "{args:?}: {err}");
-    assert!(!err.contains("panicked"), "{err}");
-    err
-}
+use std::path::Path;
 
 /// Synthetic table (for these tests only): y = 3·x1 + sin(3·x2) + (0.2 + x1)·e with e ~ N(0, 1)
 /// (the spread grows with x1), plus, with probability `outliers`, a gross error drawn from
@@ -99,7 +64,7 @@ fn a_quantile_model_puts_the_asked_share_of_held_out_targets_below_it() {
     let (train, _) = table("het.csv", 800, 1, true, 0.0);
     let (test, _) = table("het_test.csv", 3000, 2, true, 0.0);
     let model = path("q90.json");
-    let err = ok(&[
+    let (_, err) = ok(&[
         "train",
         "--data",
         &train,

@@ -2,33 +2,15 @@
 //! predicting the whole table at once, line numbers run on across chunks, and a failure part
 //! way leaves an existing output file as it was.
 
+mod common;
+
+use common::cli::{path, relume};
+
 use relume::data::{ReadOptions, Table};
 use relume::Predictor;
-use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
-use std::sync::OnceLock;
+use std::path::Path;
 
 const DEMO: &str = concat!(env!("CARGO_MANIFEST_DIR"), "/examples/data/cold_store.csv");
-
-fn relume(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_relume"))
-        .args(args)
-        .output()
-        .unwrap()
-}
-
-fn dir() -> &'static Path {
-    static DIR: OnceLock<PathBuf> = OnceLock::new();
-    DIR.get_or_init(|| {
-        let d = std::env::temp_dir().join(format!("relume-stream-{}", std::process::id()));
-        std::fs::create_dir_all(&d).unwrap();
-        d
-    })
-}
-
-fn path(name: &str) -> String {
-    dir().join(name).display().to_string()
-}
 
 /// A small model on 400 rows of the demo table, and the demo rows repeated to `rows` rows
 /// (more than two chunks of the command's 8192); files named after the test.

@@ -1,6 +1,8 @@
 //! Helpers shared by the integration tests.
 #![allow(dead_code)]
 
+pub mod cli;
+
 use ndarray::Array2;
 use ndarray_rand::rand_distr::StandardNormal;
 use ndarray_rand::RandomExt;
