@@ -281,6 +281,26 @@ async fn requests_and_refusals(service: &Running) {
         .await;
     assert_eq!(a.status, 200, "{}", a.body);
     assert_eq!(a.body["predictions"][0]["unseen_category"], json!(["kind"]));
+    // Asked to explain: the attributions plus the baseline make the prediction (completeness,
+    // Sundararajan, Taly & Yan 2017), one share per input column.
+    let a = service
+        .send(
+            "POST",
+            "/predict",
+            r#"{"rows":[{"x":1.0,"kind":"b"}],"explain":true}"#,
+        )
+        .await;
+    assert_eq!(a.status, 200, "{}", a.body);
+    let p = &a.body["predictions"][0];
+    let shares = p["attributions"].as_object().unwrap();
+    assert_eq!(shares.len(), 2, "{}", a.body);
+    let total: f64 =
+        shares.values().map(|v| v.as_f64().unwrap()).sum::<f64>() + p["baseline"].as_f64().unwrap();
+    let value = p["prediction"].as_f64().unwrap();
+    assert!(
+        (total - value).abs() <= 1e-3 * value.abs().max(1.0),
+        "{total} vs {value}"
+    );
 
     for (request, reason) in [
         ("{not json", "not JSON"),
@@ -295,6 +315,10 @@ async fn requests_and_refusals(service: &Running) {
             "number, a string or null",
         ),
         (r#"{"rows":[3]}"#, "row 0 is not an object"),
+        (
+            r#"{"rows":[],"explain":"yes"}"#,
+            "\"explain\" must be true or false",
+        ),
         (
             r#"{"rows":[{"x":1e999,"kind":"a"}]}"#,
             "number out of range",

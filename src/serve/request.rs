@@ -2,8 +2,10 @@
 //! touches untrusted bytes, kept here so the example service and the fuzz target share it.
 //!
 //! The body is `{"rows": [{column: value, ...}, ...]}` (numbers, strings, or null/absent for
-//! empty); the answer is `{"predictions": [{"prediction", "lower", "upper", "extrapolated",
-//! "out_of_range", "unseen_category"}, ...]}`.
+//! empty), with `"explain": true` to ask for attributions; the answer is `{"predictions":
+//! [{"prediction", "lower", "upper", "extrapolated", "out_of_range", "unseen_category"}, ...]}`,
+//! each prediction with `"baseline"` and `"attributions"` (column to its share, in target
+//! units: the shares plus the baseline make the prediction) when asked for.
 
 use crate::serve::predict::{Cell, Predictor};
 use serde_json::{json, Map, Value};
@@ -58,8 +60,14 @@ pub fn predict_json(
             limit: max_rows,
         });
     }
+    let explain = match request.get("explain") {
+        None | Some(Value::Null) => false,
+        Some(Value::Bool(b)) => *b,
+        Some(_) => return Err(malformed("\"explain\" must be true or false".to_string())),
+    };
     let names = predictor.feature_names();
     let mut scratch = predictor.scratch();
+    let mut shares = vec![0.0; names.len()];
     let mut cells = Vec::with_capacity(names.len());
     let mut out = Vec::with_capacity(rows.len());
     for (i, row) in rows.iter().enumerate() {
@@ -70,9 +78,18 @@ pub fn predict_json(
         for name in &names {
             cells.push(cell_of(object, name).map_err(|e| malformed(format!("row {i}: {e}")))?);
         }
-        let p = predictor
-            .predict_row(&cells, &mut scratch)
-            .map_err(|e| malformed(format!("row {i}: {}", predictor.explain(&e))))?;
+        let row_error = |e| malformed(format!("row {i}: {}", predictor.explain(&e)));
+        let (p, baseline) = if explain {
+            let a = predictor
+                .attribute_row(&cells, &mut scratch, &mut shares)
+                .map_err(row_error)?;
+            (a.prediction, Some(a.baseline))
+        } else {
+            let p = predictor
+                .predict_row(&cells, &mut scratch)
+                .map_err(row_error)?;
+            (p, None)
+        };
         if ![Some(p.value), p.lower, p.upper]
             .iter()
             .all(|v| v.is_none_or(f64::is_finite))
@@ -91,14 +108,24 @@ pub fn predict_json(
                 .map(|(n, _)| *n)
                 .collect()
         };
-        out.push(json!({
+        let mut answer = json!({
             "prediction": p.value,
             "lower": p.lower,
             "upper": p.upper,
             "extrapolated": p.extrapolated,
             "out_of_range": flagged(scratch.out_of_range()),
             "unseen_category": flagged(scratch.unseen()),
-        }));
+        });
+        if let Some(baseline) = baseline {
+            let parts: Map<String, Value> = names
+                .iter()
+                .zip(&shares)
+                .map(|(n, v)| (n.to_string(), json!(v)))
+                .collect();
+            answer["baseline"] = json!(baseline);
+            answer["attributions"] = Value::Object(parts);
+        }
+        out.push(answer);
     }
     Ok(json!({ "predictions": out }))
 }
