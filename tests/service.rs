@@ -320,6 +320,10 @@ async fn requests_and_refusals(service: &Running) {
             "\"explain\" must be true or false",
         ),
         (
+            r#"{"rows":[],"explain":null}"#,
+            "\"explain\" must be true or false",
+        ),
+        (
             r#"{"rows":[{"x":1e999,"kind":"a"}]}"#,
             "number out of range",
         ),

@@ -61,7 +61,7 @@ pub fn predict_json(
         });
     }
     let explain = match request.get("explain") {
-        None | Some(Value::Null) => false,
+        None => false,
         Some(Value::Bool(b)) => *b,
         Some(_) => return Err(malformed("\"explain\" must be true or false".to_string())),
     };
