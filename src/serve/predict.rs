@@ -2,7 +2,7 @@
 //! path that writes into caller-owned scratch and allocates nothing, a table path, and an
 //! input-range guard that flags extrapolation.
 
-use crate::data::{Column, DataError, Encoder, LevelIndex, Table};
+use crate::data::{Column, DataError, Encoder, FeatureEncoding, LevelIndex, Table};
 use crate::fit::scale::Standardizer;
 use crate::nn::activation::{leaky, Activation};
 use crate::nn::layer::LayerSpec;
@@ -102,6 +102,13 @@ pub struct Predictor {
     margin: f64,
     layouts: Vec<Layout>,
     baseline: f64,
+    /// Per encoded input, the standardized value of 0 for one-hot inputs (0 for the rest):
+    /// subtracted before the first layer, so that a level that is off contributes exactly
+    /// nothing and is skipped.
+    shift: Vec<f32>,
+    /// Per member, its first affine layer's bias with the shift folded in (None when the
+    /// network does not start with an affine layer).
+    first_bias: Vec<Option<Vec<f32>>>,
 }
 
 impl Predictor {
@@ -124,6 +131,8 @@ impl Predictor {
             .max(model.encoder.width());
         let input = model.encoder.width();
         let layouts = members.iter().map(|m| Layout::new(m, input)).collect();
+        let shift = one_hot_shift(model);
+        let first_bias = members.iter().map(|m| folded_bias(m, &shift)).collect();
         let mut predictor = Predictor {
             encoder: model.encoder.clone(),
             inputs: model.inputs.clone(),
@@ -135,6 +144,8 @@ impl Predictor {
             margin: DEFAULT_MARGIN,
             layouts,
             baseline: 0.0,
+            shift,
+            first_bias,
         };
         let mut scratch = predictor.scratch();
         scratch.a[..input].fill(0.0);
@@ -329,9 +340,32 @@ impl Predictor {
         let Scratch { a, b, input, .. } = scratch;
         input[..k].copy_from_slice(&a[..k]);
         let mut sum = 0.0_f64;
-        for steps in &self.members {
-            a[..k].copy_from_slice(&input[..k]);
-            sum += f64::from(crate::kernels::with_simd(|| run_steps(steps, a, b, k)));
+        for (steps, first_bias) in self.members.iter().zip(&self.first_bias) {
+            let value = match (steps.as_slice(), first_bias) {
+                (
+                    [Step::Affine {
+                        inputs,
+                        outputs,
+                        weights,
+                        ..
+                    }, rest @ ..],
+                    Some(bias),
+                ) if *inputs == k => crate::kernels::with_simd(|| {
+                    shifted_affine(
+                        &input[..k],
+                        &self.shift[..k],
+                        weights,
+                        bias,
+                        &mut a[..*outputs],
+                    );
+                    run_steps(rest, a, b, *outputs)
+                }),
+                _ => {
+                    a[..k].copy_from_slice(&input[..k]);
+                    crate::kernels::with_simd(|| run_steps(steps, a, b, k))
+                }
+            };
+            sum += f64::from(value);
         }
         let out = sum / self.members.len() as f64;
         out * self.target.sd[0] + self.target.mean[0]
@@ -575,6 +609,66 @@ pub struct TableRow {
 /// out = x·W + bias for one row (W is inputs × outputs, row-major): a dot product with eight
 /// partial sums for a single output, else one scaled row of W added per input.
 #[inline(always)]
+/// The standardized value of 0 for every one-hot input of `model` (computed exactly as a
+/// row's inputs are, so an input that is off gives exactly this), 0 for every other input.
+fn one_hot_shift(model: &Model) -> Vec<f32> {
+    let mut shift = Vec::with_capacity(model.encoder.width());
+    for feature in &model.encoder.features {
+        let one_hot = matches!(feature, FeatureEncoding::Category { .. });
+        for _ in 0..feature.width() {
+            let k = shift.len();
+            shift.push(if one_hot {
+                ((0.0 - model.inputs.mean[k]) / model.inputs.sd[k]) as f32
+            } else {
+                0.0
+            });
+        }
+    }
+    shift
+}
+
+/// The first affine layer's bias plus Σ shift·weights (in f64), so that the layer can take
+/// `input − shift`; None when the member does not start with an affine layer of that width.
+fn folded_bias(steps: &[Step], shift: &[f32]) -> Option<Vec<f32>> {
+    let Some(Step::Affine {
+        inputs,
+        outputs,
+        weights,
+        bias,
+    }) = steps.first()
+    else {
+        return None;
+    };
+    if *inputs != shift.len() {
+        return None;
+    }
+    Some(
+        (0..*outputs)
+            .map(|j| {
+                let folded: f64 = shift
+                    .iter()
+                    .enumerate()
+                    .map(|(i, &z)| f64::from(z) * f64::from(weights[i * outputs + j]))
+                    .sum();
+                (f64::from(bias[j]) + folded) as f32
+            })
+            .collect(),
+    )
+}
+
+/// `out = bias + Σ (x − shift)·weights` over the inputs where x − shift is not 0 (one-hot
+/// levels that are off are skipped).
+fn shifted_affine(x: &[f32], shift: &[f32], weights: &[f32], bias: &[f32], out: &mut [f32]) {
+    out.copy_from_slice(bias);
+    let width = out.len();
+    for ((&xi, &zi), row) in x.iter().zip(shift).zip(weights.chunks_exact(width)) {
+        let d = xi - zi;
+        if d != 0.0 {
+            out.iter_mut().zip(row).for_each(|(o, &w)| *o += d * w);
+        }
+    }
+}
+
 fn affine_row(x: &[f32], weights: &[f32], bias: &[f32], out: &mut [f32]) {
     if out.len() == 1 {
         let mut acc = [0.0_f32; 8];
