@@ -8,7 +8,7 @@ mod common;
 use common::cli::{bin, dir, fails, ok, path, relume, stderr, write};
 
 use std::path::Path;
-use std::process::{Command, Output, Stdio};
+use std::process::{Command, Stdio};
 
 /// `rows` rows of a, b (numbers) and y = 2a − b + 0.1·(row mod 7), with `first` as the first
 /// data row's text for column a when given.
@@ -38,18 +38,13 @@ fn train(data: &str, out: &str, extra: &[&str]) -> Vec<String> {
     args
 }
 
-fn run(args: &[String]) -> Output {
-    let refs: Vec<&str> = args.iter().map(String::as_str).collect();
-    relume(&refs)
-}
-
 #[test]
 fn one_odd_cell_in_the_first_row_does_not_make_a_numeric_column_text() {
     // Before: `0x10` in the first data row turned the column into text; a later line was
     // blamed with every training value listed.
     for odd in ["0x10", "5%", "none!"] {
         let data = write("first_row.csv", &numbers(200, Some(odd)));
-        let o = run(&train(&data, &path("never.json"), &[]));
+        let o = relume(&train(&data, &path("never.json"), &[]));
         let err = stderr(&o);
         assert_eq!(o.status.code(), Some(2), "{odd}: {err}");
         assert!(
@@ -75,10 +70,7 @@ fn decimal_commas_and_thousands_separators_are_read_as_numbers() {
     }
     let data = write("commas.csv", &text);
     let model = path("commas.json");
-    let (_, err) = ok(&train(&data, &model, &[])
-        .iter()
-        .map(String::as_str)
-        .collect::<Vec<_>>());
+    let (_, err) = ok(&train(&data, &model, &[]));
     assert!(!err.contains("one-hot") && !err.contains("levels"), "{err}");
     let (inspect, _) = ok(&["inspect", "--model", &model]);
     assert!(
@@ -89,12 +81,7 @@ fn decimal_commas_and_thousands_separators_are_read_as_numbers() {
         "ambiguous.csv",
         "a,b,y\n\"1,000\",1,2\n\"2,500\",2,3\n\"3,250\",3,4\n",
     );
-    let err = fails(
-        &train(&ambiguous, &path("amb.json"), &[])
-            .iter()
-            .map(String::as_str)
-            .collect::<Vec<_>>(),
-    );
+    let err = fails(&train(&ambiguous, &path("amb.json"), &[]));
     assert!(err.contains("--decimal-comma"), "{err}");
 }
 
@@ -110,7 +97,7 @@ fn predict_and_evaluate_read_columns_with_the_types_stored_in_the_model() {
     }
     let data = write("codes.csv", &text);
     let model = path("codes.json");
-    let o = run(&train(&data, &model, &["--text-columns", "code"]));
+    let o = relume(&train(&data, &model, &["--text-columns", "code"]));
     assert!(o.status.success(), "{}", stderr(&o));
     let pred = path("codes_pred.csv");
     ok(&[
@@ -133,7 +120,7 @@ fn sizes_the_loader_would_refuse_are_refused_before_anything_is_allocated() {
     let data = write("sizes.csv", &numbers(60, None));
     for layers in ["70000", "100000,100000", "12000,12000"] {
         let out = path("huge.json");
-        let o = run(&train(&data, &out, &["--layers", layers]));
+        let o = relume(&train(&data, &out, &["--layers", layers]));
         let err = stderr(&o);
         assert_eq!(o.status.code(), Some(2), "{layers}: {err}");
         assert!(
@@ -165,7 +152,7 @@ fn output_paths_are_checked_before_training() {
         } else {
             args.extend([option.to_string(), target.clone()]);
         }
-        let o = run(&args);
+        let o = relume(&args);
         let err = stderr(&o);
         assert_eq!(o.status.code(), Some(2), "{option} {target}: {err}");
         assert!(err.contains(option), "{option}: {err}");
@@ -179,26 +166,11 @@ fn options_that_would_be_ignored_are_refused() {
     // and --features a,a,b encoded a twice, each with exit 0.
     let data = write("ignored.csv", &numbers(200, None));
     let out = path("ignored.json");
-    let err = fails(
-        &train(&data, &out, &["--lr", "0.5"])
-            .iter()
-            .map(String::as_str)
-            .collect::<Vec<_>>(),
-    );
+    let err = fails(&train(&data, &out, &["--lr", "0.5"]));
     assert!(err.contains("--lr") && err.contains("L-BFGS"), "{err}");
-    let err = fails(
-        &train(&data, &out, &["--text-columns", "colour"])
-            .iter()
-            .map(String::as_str)
-            .collect::<Vec<_>>(),
-    );
+    let err = fails(&train(&data, &out, &["--text-columns", "colour"]));
     assert!(err.contains("'colour'") && err.contains("a, b, y"), "{err}");
-    let err = fails(
-        &train(&data, &out, &["--features", "a,a,b"])
-            .iter()
-            .map(String::as_str)
-            .collect::<Vec<_>>(),
-    );
+    let err = fails(&train(&data, &out, &["--features", "a,a,b"]));
     assert!(err.contains("'a'") && err.contains("twice"), "{err}");
     assert!(!Path::new(&out).exists());
 }
@@ -210,7 +182,7 @@ fn negative_numbers_parse_and_get_the_range_message() {
     for (option, value) in [("--val-frac", "-0.1"), ("--l2", "-1"), ("--lr", "-0.01")] {
         let mut args = train(&data, &path("neg.json"), &[option, value]);
         args.extend(["--optimizer".to_string(), "adam".to_string()]);
-        let o = run(&args);
+        let o = relume(&args);
         let err = stderr(&o);
         assert_eq!(o.status.code(), Some(2), "{option}: {err}");
         assert!(!err.contains("unexpected argument"), "{option}: {err}");
@@ -222,7 +194,7 @@ fn inspect_into_a_closed_pipe_ends_quietly() {
     // Before: a reader that stops early (`relume inspect | head -1`) made inspect panic.
     let data = write("pipe.csv", &numbers(120, None));
     let model = path("pipe.json");
-    assert!(run(&train(&data, &model, &[])).status.success());
+    assert!(relume(&train(&data, &model, &[])).status.success());
     let mut child = Command::new(bin())
         .args(["inspect", "--model", &model])
         .stdout(Stdio::piped())
@@ -255,10 +227,7 @@ fn advice_and_help_name_options_that_exist_and_defaults_that_hold() {
     .to_string();
     assert!(advice.contains("--clip-norm"), "{advice}");
     let data = write("help_default.csv", &numbers(200, None));
-    let (_, err) = ok(&train(&data, &path("adam.json"), &["--optimizer", "adam"])
-        .iter()
-        .map(String::as_str)
-        .collect::<Vec<_>>());
+    let (_, err) = ok(&train(&data, &path("adam.json"), &["--optimizer", "adam"]));
     assert!(err.contains("relu, adam optimizer"), "{err}");
     assert!(
         help.contains("gelu when L-BFGS trains") && help.contains("relu for every other"),
@@ -271,10 +240,14 @@ fn separators_encodings_and_quotes_get_a_hint() {
     // Before: a semicolon file got "no column named 'y'; the columns are: a;b;y", invalid UTF-8
     // no hint to re-encode, and an unterminated quote a field count.
     let semi = write("semi.csv", &numbers(120, None).replace(',', ";"));
-    assert!(run(&train(&semi, &path("semi.json"), &[])).status.success());
+    assert!(relume(&train(&semi, &path("semi.json"), &[]))
+        .status
+        .success());
     let tab = write("tab.csv", &numbers(120, None).replace(',', "\t"));
-    assert!(run(&train(&tab, &path("tab.json"), &[])).status.success());
-    let forced = run(&train(
+    assert!(relume(&train(&tab, &path("tab.json"), &[]))
+        .status
+        .success());
+    let forced = relume(&train(
         &semi,
         &path("forced.json"),
         &["--separator", "comma"],
@@ -286,20 +259,10 @@ fn separators_encodings_and_quotes_get_a_hint() {
     bytes.extend_from_slice(b"4,\xff\xfe,6\n");
     let latin = path("latin.csv");
     std::fs::write(&latin, bytes).unwrap();
-    let err = fails(
-        &train(&latin, &path("latin.json"), &[])
-            .iter()
-            .map(String::as_str)
-            .collect::<Vec<_>>(),
-    );
+    let err = fails(&train(&latin, &path("latin.json"), &[]));
     assert!(err.contains("UTF-8") && err.contains("line 3"), "{err}");
     let quote = write("quote.csv", "a,b,y\n1,2,3\n4,\"5,6\n7,8,9\n");
-    let err = fails(
-        &train(&quote, &path("quote.json"), &[])
-            .iter()
-            .map(String::as_str)
-            .collect::<Vec<_>>(),
-    );
+    let err = fails(&train(&quote, &path("quote.json"), &[]));
     assert!(err.contains("quote") && err.contains("line 3"), "{err}");
 }
 
@@ -314,14 +277,8 @@ fn results_a_careful_analyst_would_flag_are_flagged() {
         noise += &format!("{},{},{}\n", (i * 13) % 17, (i * 7) % 11, h % 1000);
     }
     let data = write("noise.csv", &noise);
-    let (_, err) = ok(&train(&data, &path("noise.json"), &["--layers", "64,64"])
-        .iter()
-        .map(String::as_str)
-        .collect::<Vec<_>>());
+    let (_, err) = ok(&train(&data, &path("noise.json"), &["--layers", "64,64"]));
     assert!(err.contains("R²") && err.contains("warning"), "{err}");
-    let (_, err) = ok(&train(&data, &path("few.json"), &["--val-frac", "0.9"])
-        .iter()
-        .map(String::as_str)
-        .collect::<Vec<_>>());
+    let (_, err) = ok(&train(&data, &path("few.json"), &["--val-frac", "0.9"]));
     assert!(err.contains("only 12 training rows"), "{err}");
 }

@@ -1,5 +1,6 @@
 //! Running the `relume` binary from the tests, with a scratch folder per test binary.
 
+use std::ffi::OsStr;
 use std::path::{Path, PathBuf};
 use std::process::{Command, Output};
 use std::sync::OnceLock;
@@ -11,7 +12,7 @@ pub fn bin() -> String {
 }
 
 /// Runs the binary with `args`.
-pub fn relume(args: &[&str]) -> Output {
+pub fn relume<S: AsRef<OsStr>>(args: &[S]) -> Output {
     Command::new(bin()).args(args).output().unwrap()
 }
 
@@ -45,7 +46,7 @@ pub fn stderr(o: &Output) -> String {
 }
 
 /// Runs, expects exit 2 without a panic or a backtrace hint, returns standard error.
-pub fn fails(args: &[&str]) -> String {
+pub fn fails<S: AsRef<OsStr> + std::fmt::Debug>(args: &[S]) -> String {
     let o = relume(args);
     let err = stderr(&o);
     assert_eq!(o.status.code(), Some(2), "{args:?}: {err}");
@@ -57,7 +58,7 @@ pub fn fails(args: &[&str]) -> String {
 }
 
 /// Runs, expects success, returns (standard output, standard error).
-pub fn ok(args: &[&str]) -> (String, String) {
+pub fn ok<S: AsRef<OsStr> + std::fmt::Debug>(args: &[S]) -> (String, String) {
     let o = relume(args);
     let err = stderr(&o);
     assert!(o.status.success(), "{args:?}: {err}");
