@@ -282,3 +282,35 @@ fn results_a_careful_analyst_would_flag_are_flagged() {
     let (_, err) = ok(&train(&data, &path("few.json"), &["--val-frac", "0.9"]));
     assert!(err.contains("only 12 training rows"), "{err}");
 }
+
+#[test]
+#[cfg(unix)]
+fn an_output_that_is_a_named_pipe_is_written_into_not_replaced() {
+    // Before: `--out /dev/null` (or a named pipe) got a temporary file renamed over it, which,
+    // run as root, replaced the /dev/null device with a regular file.
+    use std::io::Read;
+    use std::os::unix::fs::FileTypeExt;
+    let data = write("fifo.csv", &numbers(120, None));
+    let model = path("fifo.json");
+    assert!(relume(&train(&data, &model, &[])).status.success());
+    let fifo = path("fifo.out");
+    let _ = std::fs::remove_file(&fifo);
+    assert!(Command::new("mkfifo").arg(&fifo).status().unwrap().success());
+    let reader = {
+        let fifo = fifo.clone();
+        std::thread::spawn(move || {
+            let mut text = String::new();
+            std::fs::File::open(&fifo)
+                .unwrap()
+                .read_to_string(&mut text)
+                .unwrap();
+            text
+        })
+    };
+    let o = relume(&["predict", "--model", &model, "--data", &data, "--out", &fifo]);
+    let err = stderr(&o);
+    assert!(o.status.success(), "{err}");
+    assert!(std::fs::metadata(&fifo).unwrap().file_type().is_fifo());
+    let text = reader.join().unwrap();
+    assert_eq!(text.lines().count(), 121, "{text}");
+}

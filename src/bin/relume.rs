@@ -657,6 +657,11 @@ fn check_output(option: &str, path: &Path) -> Result<(), Failure> {
     if path.is_dir() || path.as_os_str().to_string_lossy().ends_with('/') {
         return Err(refuse("is a folder; give a file name".to_string()));
     }
+    // A device or named pipe is written in place (see serve::atomic); opening a pipe here to
+    // test it would end the reader's input before the real output starts.
+    if relume::serve::atomic::is_special_file(path) {
+        return Ok(());
+    }
     let parent = match path.parent() {
         Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
         _ => PathBuf::from("."),
