@@ -295,7 +295,11 @@ fn an_output_that_is_a_named_pipe_is_written_into_not_replaced() {
     assert!(relume(&train(&data, &model, &[])).status.success());
     let fifo = path("fifo.out");
     let _ = std::fs::remove_file(&fifo);
-    assert!(Command::new("mkfifo").arg(&fifo).status().unwrap().success());
+    assert!(Command::new("mkfifo")
+        .arg(&fifo)
+        .status()
+        .unwrap()
+        .success());
     let reader = {
         let fifo = fifo.clone();
         std::thread::spawn(move || {
@@ -307,7 +311,9 @@ fn an_output_that_is_a_named_pipe_is_written_into_not_replaced() {
             text
         })
     };
-    let o = relume(&["predict", "--model", &model, "--data", &data, "--out", &fifo]);
+    let o = relume(&[
+        "predict", "--model", &model, "--data", &data, "--out", &fifo,
+    ]);
     let err = stderr(&o);
     assert!(o.status.success(), "{err}");
     assert!(std::fs::metadata(&fifo).unwrap().file_type().is_fifo());

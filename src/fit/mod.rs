@@ -10,4 +10,5 @@ pub mod penalty;
 pub mod recipe;
 pub mod scale;
 pub mod schedule;
+pub mod split;
 pub mod train;

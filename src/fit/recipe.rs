@@ -323,13 +323,12 @@ pub struct Trained<F: Scalar> {
 }
 
 impl<F: Scalar> Trained<F> {
-    /// Predictions in the target's own units.
+    /// Predictions in the target's own units (run in chunks of
+    /// [`CHUNK_ROWS`](crate::fit::split::CHUNK_ROWS) rows, so the network's buffers stay small).
     pub fn predict(&mut self, x: ArrayView2<'_, F>) -> Result<Array2<F>, ShapeError> {
         let scaled = self.inputs.apply(x);
-        let out = self
-            .network
-            .forward(scaled.view(), crate::nn::layer::Pass::Infer)?;
-        Ok(self.target.invert(out))
+        let out = crate::fit::split::forward_in_chunks(&mut self.network, scaled.view())?;
+        Ok(self.target.invert(out.view()))
     }
 }
 

@@ -5,12 +5,13 @@
 use crate::fit::objective::Objective;
 use crate::fit::optim::{Lbfgs, LbfgsOutcome, LbfgsProblem, Optimizer, OptimizerChoice};
 use crate::fit::schedule::Schedule;
+use crate::fit::split::Rows;
 use crate::kernels::scalar::Scalar;
 use crate::nn::error::{ConfigError, ShapeError};
 use crate::nn::init::rng_from_seed;
 use crate::nn::layer::Pass;
 use crate::nn::network::Network;
-use ndarray::{Array2, ArrayView2, Axis, CowArray, Ix2};
+use ndarray::{Array2, ArrayView2, CowArray, Ix2};
 use rand::seq::SliceRandom;
 use serde::{Deserialize, Serialize};
 use std::ops::Range;
@@ -332,12 +333,10 @@ fn check_data<F: Scalar>(
     Ok(())
 }
 
-/// Training and validation rows: the caller's arrays where they can be used as they are,
-/// copies only when the trainer makes the split itself.
+/// Training and validation rows, as views of the caller's arrays (no copies).
 struct Split<'d, F> {
-    x: CowArray<'d, F, Ix2>,
-    y: CowArray<'d, F, Ix2>,
-    val: Option<(CowArray<'d, F, Ix2>, CowArray<'d, F, Ix2>)>,
+    train: Rows<'d, F>,
+    val: Option<Rows<'d, F>>,
 }
 
 impl<'d, F: Scalar> Split<'d, F> {
@@ -349,17 +348,15 @@ impl<'d, F: Scalar> Split<'d, F> {
     ) -> Result<Self, TrainError> {
         if let Some((vx, vy)) = validation {
             return Ok(Split {
-                x: x.into(),
-                y: y.into(),
-                val: Some((vx.into(), vy.into())),
+                train: Rows::all(x, y),
+                val: Some(Rows::all(vx, vy)),
             });
         }
         let rows = x.nrows();
         let n_val = (rows as f64 * config.val_frac).round() as usize;
         if n_val == 0 {
             return Ok(Split {
-                x: x.into(),
-                y: y.into(),
+                train: Rows::all(x, y),
                 val: None,
             });
         }
@@ -371,12 +368,8 @@ impl<'d, F: Scalar> Split<'d, F> {
         }
         let (train_idx, val_idx) = holdout_indices(rows, n_val, config.seed);
         Ok(Split {
-            x: x.select(Axis(0), &train_idx).into(),
-            y: y.select(Axis(0), &train_idx).into(),
-            val: Some((
-                x.select(Axis(0), &val_idx).into(),
-                y.select(Axis(0), &val_idx).into(),
-            )),
+            train: Rows::subset(x, y, train_idx),
+            val: Some(Rows::subset(x, y, val_idx)),
         })
     }
 }
@@ -440,13 +433,10 @@ impl<'a, F: Scalar> Run<'a, F> {
 
     /// Data loss of the network on the validation rows.
     fn val_loss(&self, net: &mut Network<F>) -> Result<Option<f64>, TrainError> {
-        let Some((vx, vy)) = &self.split.val else {
+        let Some(val) = &self.split.val else {
             return Ok(None);
         };
-        let out = net.forward(vx.view(), Pass::Infer)?;
-        Ok(Some(
-            self.config.objective.loss.value(out, vy.view())?.as_f64(),
-        ))
+        Ok(Some(val.mean_loss(net, &self.config.objective.loss)?))
     }
 
     /// Bookkeeping at the end of an epoch: best weights, patience, observers.
@@ -529,8 +519,8 @@ impl<'a, F: Scalar> Run<'a, F> {
             stop,
             rollbacks: self.rollbacks,
             rows: (
-                self.split.x.nrows(),
-                self.split.val.as_ref().map_or(0, |(v, _)| v.nrows()),
+                self.split.train.len(),
+                self.split.val.as_ref().map_or(0, Rows::len),
             ),
         }
     }
@@ -549,7 +539,7 @@ impl<'a, F: Scalar> Run<'a, F> {
         let mut rates = config.schedule.start(config.lr);
         let mut guard_factor = 1.0;
         let mut rng = rng_from_seed(config.seed);
-        let rows = self.split.x.nrows();
+        let rows = self.split.train.len();
         let batch = config.batch.min(rows);
         let mut order: Vec<usize> = (0..rows).collect();
         let mut xb = Array2::<F>::zeros((batch, net.input_width()));
@@ -570,8 +560,8 @@ impl<'a, F: Scalar> Run<'a, F> {
             for (step, chunk) in order.chunks(batch).enumerate() {
                 let k = chunk.len();
                 for (slot, &i) in chunk.iter().enumerate() {
-                    xb.row_mut(slot).assign(&self.split.x.row(i));
-                    yb.row_mut(slot).assign(&self.split.y.row(i));
+                    xb.row_mut(slot).assign(&self.split.train.x_row(i));
+                    yb.row_mut(slot).assign(&self.split.train.y_row(i));
                 }
                 let (xv, yv) = (
                     xb.slice(ndarray::s![..k, ..]),
@@ -714,7 +704,10 @@ impl<'a, F: Scalar> Run<'a, F> {
             ..Lbfgs::default()
         };
         let mut x0: Vec<f64> = net.params().iter().map(|p| p.as_f64()).collect();
+        let (xs, ys) = self.split.train.whole();
         let mut problem = FullBatch {
+            xs,
+            ys,
             run: &mut self,
             net,
             observers,
@@ -755,6 +748,9 @@ impl<'a, F: Scalar> Run<'a, F> {
 
 /// The L-BFGS view of full-batch training.
 struct FullBatch<'r, 'a, 'n, 'o, 'p, F: Scalar> {
+    /// Every training row, in one piece.
+    xs: CowArray<'a, F, Ix2>,
+    ys: CowArray<'a, F, Ix2>,
     run: &'r mut Run<'a, F>,
     net: &'n mut Network<F>,
     observers: &'o mut [&'p mut dyn Observer<F>],
@@ -774,7 +770,7 @@ impl<F: Scalar> LbfgsProblem for FullBatch<'_, '_, '_, '_, '_, F> {
         }
         net.clear_gradients();
         let objective = &run.config.objective;
-        let (xs, ys) = (run.split.x.view(), run.split.y.view());
+        let (xs, ys) = (self.xs.view(), self.ys.view());
         let Ok(out) = net.forward(xs, Pass::Train) else {
             return f64::NAN;
         };

@@ -126,6 +126,21 @@ impl Loss {
         Ok(total / F::of(n as f64))
     }
 
+    /// Sum of the loss over all entries, accumulated in f64 (for means over many rows taken
+    /// in parts).
+    pub fn total<F: Scalar>(
+        &self,
+        pred: ArrayView2<'_, F>,
+        target: ArrayView2<'_, F>,
+    ) -> Result<f64, ShapeError> {
+        same_shape("loss target", pred.dim(), target.dim())?;
+        let mut total = 0.0;
+        Zip::from(&pred)
+            .and(&target)
+            .for_each(|&p, &y| total += self.point(p - y).as_f64());
+        Ok(total)
+    }
+
     /// Writes d(mean loss)/dŷ into `out` (same shape as `pred`).
     pub fn gradient_into<F: Scalar>(
         &self,
