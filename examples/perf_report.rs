@@ -504,7 +504,7 @@ fn scaling_child(rows: usize) {
         relume::train(&mut net, x.view(), y.view(), None, &config, &mut []).expect("training");
     let seconds: Vec<f64> = summary.history.iter().map(|e| e.seconds).collect();
     println!(
-        "scaling rows={rows} cols=20 epoch_s={:.3} train_rows={} peak_rss_after_data_mb={data_mb:.1} \
+        "scaling rows={rows} cols=20 epoch_s={:.4} train_rows={} peak_rss_after_data_mb={data_mb:.1} \
          peak_rss_mb={:.1}",
         median(&seconds),
         summary.rows.0,

@@ -50,6 +50,15 @@ impl<'d, F: Scalar> Rows<'d, F> {
         self.y.row(self.source(i))
     }
 
+    /// Asks the CPU to start loading row `i` (inputs and target) into cache (no effect off
+    /// x86-64): the next mini-batch's rows are scattered over the whole table, and fetching
+    /// them while the current step computes hides most of the wait on large tables.
+    pub(crate) fn prefetch(&self, i: usize) {
+        let r = self.source(i);
+        prefetch_row(self.x.row(r));
+        prefetch_row(self.y.row(r));
+    }
+
     fn source(&self, i: usize) -> usize {
         self.index.as_ref().map_or(i, |idx| idx[i])
     }
@@ -101,6 +110,25 @@ impl<'d, F: Scalar> Rows<'d, F> {
         }
         Ok(total / (rows * self.y.ncols()).max(1) as f64)
     }
+}
+
+/// Prefetches every cache line of a contiguous row (see [`Rows::prefetch`]).
+fn prefetch_row<F>(row: ArrayView1<'_, F>) {
+    #[cfg(target_arch = "x86_64")]
+    if let Some(values) = row.as_slice() {
+        use std::arch::x86_64::{_mm_prefetch, _MM_HINT_T0};
+        let line = (64 / std::mem::size_of::<F>().max(1)).max(1);
+        let last = values.len().saturating_sub(1);
+        for k in (0..values.len()).step_by(line).chain(std::iter::once(last)) {
+            if let Some(v) = values.get(k) {
+                // SAFETY: a prefetch only hints the cache; SSE is part of every x86-64 CPU,
+                // and the address is inside the row.
+                unsafe { _mm_prefetch::<_MM_HINT_T0>((v as *const F).cast::<i8>()) };
+            }
+        }
+    }
+    #[cfg(not(target_arch = "x86_64"))]
+    let _ = row;
 }
 
 /// `net`'s outputs for every row of `x`, run forward at most [`CHUNK_ROWS`] rows at a time.

@@ -559,6 +559,10 @@ impl<'a, F: Scalar> Run<'a, F> {
             let mut failure = None;
             for (step, chunk) in order.chunks(batch).enumerate() {
                 let k = chunk.len();
+                let next = order.get((step + 1) * batch..).unwrap_or(&[]);
+                next.iter()
+                    .take(batch)
+                    .for_each(|&i| self.split.train.prefetch(i));
                 for (slot, &i) in chunk.iter().enumerate() {
                     xb.row_mut(slot).assign(&self.split.train.x_row(i));
                     yb.row_mut(slot).assign(&self.split.train.y_row(i));
@@ -949,7 +953,8 @@ fn first_non_finite_output<F: Scalar>(net: &Network<F>) -> Option<String> {
 /// A tensor of `values` (laid out like the parameters) holding a non-finite entry: the last one
 /// if `from_top` (gradients flow from the top), else the first.
 fn non_finite_tensor<F: Scalar>(net: &Network<F>, values: &[F], from_top: bool) -> Option<String> {
-    if values.iter().all(|v| v.is_finite()) {
+    // A fold without early exit vectorizes (every step checks every gradient and weight).
+    if !values.iter().fold(false, |bad, v| bad | !v.is_finite()) {
         return None;
     }
     let bad =
