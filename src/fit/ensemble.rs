@@ -89,8 +89,10 @@ pub fn fit_ensemble(
         let n = finished.fetch_add(1, std::sync::atomic::Ordering::Relaxed) + 1;
         done(n, total);
     };
+    // Every run trains on the same rows with the same scaling: copy and scale them once.
+    let rows = recipe.scale_rows(x, y, train, stop)?;
     let run = |r: &Recipe, watch: bool| {
-        let out = r.fit_rows(x, y, train, stop, &mut [], watch.then_some(monitor));
+        let out = r.fit_scaled(&rows, &mut [], watch.then_some(monitor));
         tick();
         out
     };

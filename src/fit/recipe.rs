@@ -457,16 +457,22 @@ impl Recipe {
         observers: &mut [&mut dyn Observer<F>],
         monitor: Option<MonitorConfig>,
     ) -> Result<(Trained<F>, Option<RunReport>), TrainError> {
-        let mut network = self
-            .plan(x.nrows(), x.ncols(), y.ncols())
-            .build::<F>(self.seed)?;
+        let rows = self.scale_rows(x, y, train_idx, val_idx)?;
+        self.fit_scaled(&rows, observers, monitor)
+    }
+
+    /// The rows `train` and `val` of `x` → `y`, copied out and scaled as this recipe scales
+    /// them (fitted on the `train` rows): one copy that every run on the same rows can share
+    /// (an ensemble's members differ only in seed and penalty).
+    pub fn scale_rows<F: Scalar>(
+        &self,
+        x: ArrayView2<'_, F>,
+        y: ArrayView2<'_, F>,
+        train_idx: &[usize],
+        val_idx: &[usize],
+    ) -> Result<ScaledRows<F>, TrainError> {
         if x.nrows() != y.nrows() {
             return Err(ShapeError::new("targets", (x.nrows(), y.ncols()), y.dim()).into());
-        }
-        let mut config = self.config_for(x.nrows());
-        if val_idx.is_empty() {
-            // No validation rows given: train must not split its own.
-            config.val_frac = 0.0;
         }
         let rows = |m: ArrayView2<'_, F>, idx: &[usize]| m.select(Axis(0), idx);
         let (mut xs, mut ys) = (rows(x, train_idx), rows(y, train_idx));
@@ -483,11 +489,45 @@ impl Recipe {
         inputs.apply_in_place(&mut xs);
         target.apply_in_place(&mut ys);
         let val = (!val_idx.is_empty()).then(|| {
-            (
-                inputs.apply(rows(x, val_idx).view()),
-                target.apply(rows(y, val_idx).view()),
-            )
+            let (mut vx, mut vy) = (rows(x, val_idx), rows(y, val_idx));
+            inputs.apply_in_place(&mut vx);
+            target.apply_in_place(&mut vy);
+            (vx, vy)
         });
+        Ok(ScaledRows {
+            table_rows: x.nrows(),
+            inputs,
+            target,
+            x: xs,
+            y: ys,
+            val,
+        })
+    }
+
+    /// Trains on rows scaled by [`Recipe::scale_rows`] (of a recipe with the same scaling
+    /// settings), as [`Recipe::fit_rows`] does.
+    pub fn fit_scaled<F: Scalar>(
+        &self,
+        data: &ScaledRows<F>,
+        observers: &mut [&mut dyn Observer<F>],
+        monitor: Option<MonitorConfig>,
+    ) -> Result<(Trained<F>, Option<RunReport>), TrainError> {
+        let ScaledRows {
+            table_rows,
+            inputs,
+            target,
+            x: xs,
+            y: ys,
+            val,
+        } = data;
+        let mut network = self
+            .plan(*table_rows, xs.ncols(), ys.ncols())
+            .build::<F>(self.seed)?;
+        let mut config = self.config_for(*table_rows);
+        if val.is_none() {
+            // No validation rows given: train must not split its own.
+            config.val_frac = 0.0;
+        }
         let val_views = val.as_ref().map(|(vx, vy)| (vx.view(), vy.view()));
         // Revival needs a monitor even when no report is asked for; each run draws its own
         // revived weights.
@@ -523,8 +563,8 @@ impl Recipe {
             let shape = DataShape {
                 train_rows: xs.nrows(),
                 val_rows: val.as_ref().map_or(0, |(v, _)| v.nrows()),
-                inputs: x.ncols(),
-                outputs: y.ncols(),
+                inputs: xs.ncols(),
+                outputs: ys.ncols(),
             };
             RunReport::new(
                 self.seed,
@@ -538,13 +578,27 @@ impl Recipe {
         Ok((
             Trained {
                 network,
-                inputs,
-                target,
+                inputs: inputs.clone(),
+                target: target.clone(),
                 summary,
             },
             report,
         ))
     }
+}
+
+/// Training and validation rows scaled for training ([`Recipe::scale_rows`]).
+#[derive(Debug, Clone)]
+pub struct ScaledRows<F: Scalar> {
+    /// Rows of the table the rows came from (the settings depend on it).
+    table_rows: usize,
+    /// The input scaling, fitted on the training rows.
+    pub inputs: Standardizer,
+    /// The target scaling, fitted on the training rows.
+    pub target: Standardizer,
+    x: Array2<F>,
+    y: Array2<F>,
+    val: Option<(Array2<F>, Array2<F>)>,
 }
 
 /// The monitor (if any) followed by the caller's observers, as one observer.
