@@ -304,6 +304,40 @@ fn the_chart_draws_both_losses_and_every_layer() {
         assert!(svg.contains("hidden layer 1 (relu)") && svg.contains("hidden layer 2 (relu)"));
         assert!(svg.contains("validation") && svg.contains("best epoch"));
     }
+    // A long activation label still fits: its legend text ends inside the chart's width
+    // (estimated at 6.6 px per character of 12 px sans-serif, as the chart sizes it).
+    let mut long = report.clone();
+    for e in &mut long.epochs {
+        for l in &mut e.layers {
+            l.activation = "random-leaky:0.125:0.333".to_string();
+        }
+    }
+    let svg = plot_run(&long, PlotOptions::default());
+    let width: f64 = svg
+        .split("width=\"")
+        .nth(1)
+        .unwrap()
+        .split('"')
+        .next()
+        .unwrap()
+        .parse()
+        .unwrap();
+    let name = "hidden layer 2 (random-leaky:0.125:0.333)";
+    let before = &svg[..svg.find(&format!(">{name}<")).expect("legend entry")];
+    let x: f64 = before
+        .rsplit("<text x=\"")
+        .next()
+        .unwrap()
+        .split('"')
+        .next()
+        .unwrap()
+        .parse()
+        .unwrap();
+    assert!(
+        x + 6.6 * name.len() as f64 <= width,
+        "legend ends at {} of {width}",
+        x + 6.6 * name.len() as f64
+    );
     if let Ok(dir) = std::env::var("RELUME_PLOT_DIR") {
         std::fs::write(
             format!("{dir}/run.svg"),

@@ -162,6 +162,18 @@ pub(super) fn label(v: f64) -> String {
     }
 }
 
+/// The legend name of hidden layer `k`: its number and activation.
+fn layer_name(report: &RunReport, k: usize) -> String {
+    report
+        .epochs
+        .iter()
+        .find_map(|e| e.layers.get(k))
+        .map_or_else(
+            || format!("hidden layer {}", k + 1),
+            |l| format!("hidden layer {} ({})", k + 1, l.activation),
+        )
+}
+
 fn legend(svg: &mut String, x: f64, y: f64, entries: &[(String, &str, bool)]) {
     for (i, (name, colour, dashed)) in entries.iter().enumerate() {
         let yy = y + 18.0 * i as f64;
@@ -207,7 +219,19 @@ pub fn plot_run(report: &RunReport, options: PlotOptions) -> String {
         lo = lo.min(0.0);
     }
     let left = 80.0;
-    let plot_w = w - left - 170.0;
+    // Room on the right for the longest legend entry (a layer with a parametrized activation
+    // can be long), at about 6.6 px per character of 12 px sans-serif text.
+    let longest = (0..report
+        .epochs
+        .iter()
+        .map(|e| e.layers.len())
+        .max()
+        .unwrap_or(0))
+        .map(|k| layer_name(report, k).chars().count())
+        .max()
+        .unwrap_or(0)
+        .max("validation".len());
+    let plot_w = w - left - (60.0 + 6.6 * longest as f64).max(170.0);
     let loss = Panel {
         left,
         top: 50.0,
@@ -299,15 +323,7 @@ pub fn plot_run(report: &RunReport, options: PlotOptions) -> String {
             .filter_map(|e| e.layers.get(k).map(|l| (e.epoch as f64, l.dead_fraction)))
             .collect();
         dead.line(&mut svg, &points, colour, false);
-        let name = report
-            .epochs
-            .iter()
-            .find_map(|e| e.layers.get(k))
-            .map_or_else(
-                || format!("hidden layer {}", k + 1),
-                |l| format!("hidden layer {} ({})", k + 1, l.activation),
-            );
-        layer_entries.push((name, colour, false));
+        layer_entries.push((layer_name(report, k), colour, false));
     }
     if layer_count == 0 {
         let _ = writeln!(
