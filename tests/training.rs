@@ -421,3 +421,79 @@ fn bad_training_data_is_an_error_naming_the_cell() {
     assert!(train(&mut net, x.view(), y.view(), None, &bad, &mut []).is_err());
     let _ = Role::Weight;
 }
+
+#[test]
+fn training_on_listed_rows_matches_training_on_their_copies() {
+    // The rows are taken by index, not copied out; the result must be the same bits, for the
+    // mini-batch loop and for L-BFGS (whose full batch is gathered once).
+    use relume::fit::train::train_on_rows;
+    let x = normal_matrix(900, 4, 31).mapv(|v| v as f32);
+    let y = x
+        .map_axis(Axis(1), |r| r[0] * 2.0 - r[1] + r[2] * r[3])
+        .insert_axis(Axis(1));
+    let train_rows: Vec<usize> = (0..900).filter(|i| i % 5 != 2).rev().collect();
+    let val_rows: Vec<usize> = (0..900).filter(|i| i % 5 == 2).collect();
+    for optimizer in [
+        OptimizerChoice::Adam { amsgrad: false },
+        OptimizerChoice::Lbfgs { history: 8 },
+    ] {
+        let config = TrainConfig {
+            epochs: 6,
+            batch: 16,
+            optimizer,
+            ..TrainConfig::default()
+        };
+        let plan = NetworkPlan::new(4, &[12, 12], Activation::Relu);
+        let mut by_index = plan.build::<f32>(5).unwrap();
+        let mut by_copy = plan.build::<f32>(5).unwrap();
+        let a = train_on_rows(
+            &mut by_index,
+            x.view(),
+            y.view(),
+            &train_rows,
+            &val_rows,
+            &config,
+            &mut [],
+        )
+        .unwrap();
+        let (xt, yt) = (
+            x.select(Axis(0), &train_rows),
+            y.select(Axis(0), &train_rows),
+        );
+        let (xv, yv) = (x.select(Axis(0), &val_rows), y.select(Axis(0), &val_rows));
+        let b = train(
+            &mut by_copy,
+            xt.view(),
+            yt.view(),
+            Some((xv.view(), yv.view())),
+            &config,
+            &mut [],
+        )
+        .unwrap();
+        assert_eq!(by_index.params(), by_copy.params(), "{optimizer:?}");
+        assert_eq!(a.best_epoch, b.best_epoch);
+        assert_eq!(a.best_val_loss, b.best_val_loss);
+        assert_eq!(a.rows, b.rows);
+    }
+    // Standardizer fitted on listed rows = fitted on their copy.
+    let fitted = relume::Standardizer::fit_rows(x.view(), &train_rows);
+    assert_eq!(
+        fitted,
+        relume::Standardizer::fit(x.select(Axis(0), &train_rows).view())
+    );
+    // A row past the end is an error, not a panic.
+    let mut net = NetworkPlan::new(4, &[3], Activation::Relu)
+        .build::<f32>(1)
+        .unwrap();
+    let err = train_on_rows(
+        &mut net,
+        x.view(),
+        y.view(),
+        &[0, 900],
+        &[],
+        &TrainConfig::default(),
+        &mut [],
+    )
+    .unwrap_err();
+    assert!(err.to_string().contains("row 900"), "{err}");
+}

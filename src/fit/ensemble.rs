@@ -9,7 +9,7 @@
 
 use crate::fit::monitor::MonitorConfig;
 use crate::fit::parallel::map_in_order;
-use crate::fit::recipe::{Recipe, Trained};
+use crate::fit::recipe::{Recipe, ScaledRows, Trained};
 use crate::fit::train::TrainError;
 use crate::report::RunReport;
 use ndarray::ArrayView2;
@@ -76,9 +76,22 @@ pub fn fit_ensemble(
     monitor: MonitorConfig,
     done: &(dyn Fn(usize, usize) + Sync),
 ) -> Result<Ensemble, TrainError> {
+    let rows = recipe.scale_rows(x, y, train, stop)?;
+    fit_ensemble_scaled(recipe, &rows, monitor, done)
+}
+
+/// [`fit_ensemble`] on rows already copied out and scaled by [`Recipe::scale_rows`] (every run
+/// shares them), so that a caller can let go of its own copy of the table before training.
+pub fn fit_ensemble_scaled(
+    recipe: &Recipe,
+    rows: &ScaledRows<f32>,
+    monitor: MonitorConfig,
+    done: &(dyn Fn(usize, usize) + Sync),
+) -> Result<Ensemble, TrainError> {
     let k = recipe.members.max(1);
     let grid: Vec<f64> =
-        if recipe.choose_penalty && !stop.is_empty() && train.len() <= PENALTY_GRID_ROWS {
+        if recipe.choose_penalty && rows.has_validation() && rows.train_rows() <= PENALTY_GRID_ROWS
+        {
             PENALTY_GRID.to_vec()
         } else {
             Vec::new()
@@ -89,10 +102,8 @@ pub fn fit_ensemble(
         let n = finished.fetch_add(1, std::sync::atomic::Ordering::Relaxed) + 1;
         done(n, total);
     };
-    // Every run trains on the same rows with the same scaling: copy and scale them once.
-    let rows = recipe.scale_rows(x, y, train, stop)?;
     let run = |r: &Recipe, watch: bool| {
-        let out = r.fit_scaled(&rows, &mut [], watch.then_some(monitor));
+        let out = r.fit_scaled(rows, &mut [], watch.then_some(monitor));
         tick();
         out
     };

@@ -22,7 +22,7 @@ use crate::fit::penalty::L1Mode;
 use crate::fit::penalty::Penalty;
 use crate::fit::scale::Standardizer;
 use crate::fit::schedule::Schedule;
-use crate::fit::train::{train, Observer, TrainConfig, TrainError, TrainSummary};
+use crate::fit::train::{train_on_rows, Observer, TrainConfig, TrainError, TrainSummary};
 use crate::kernels::scalar::Scalar;
 use crate::nn::activation::Activation;
 use crate::nn::error::ShapeError;
@@ -461,9 +461,9 @@ impl Recipe {
         self.fit_scaled(&rows, observers, monitor)
     }
 
-    /// The rows `train` and `val` of `x` → `y`, copied out and scaled as this recipe scales
-    /// them (fitted on the `train` rows): one copy that every run on the same rows can share
-    /// (an ensemble's members differ only in seed and penalty).
+    /// `x` → `y` copied and scaled as this recipe scales them (fitted on the `train` rows),
+    /// to train on the rows `train` and validate on the rows `val`: one copy that every run
+    /// on the same rows can share (an ensemble's members differ only in seed and penalty).
     pub fn scale_rows<F: Scalar>(
         &self,
         x: ArrayView2<'_, F>,
@@ -474,33 +474,46 @@ impl Recipe {
         if x.nrows() != y.nrows() {
             return Err(ShapeError::new("targets", (x.nrows(), y.ncols()), y.dim()).into());
         }
-        let rows = |m: ArrayView2<'_, F>, idx: &[usize]| m.select(Axis(0), idx);
-        let (mut xs, mut ys) = (rows(x, train_idx), rows(y, train_idx));
+        self.scale_owned(x.to_owned(), y.to_owned(), train_idx, val_idx)
+    }
+
+    /// [`Recipe::scale_rows`] in place, on arrays the caller gives up (no second copy of the
+    /// table).
+    pub fn scale_owned<F: Scalar>(
+        &self,
+        mut x: Array2<F>,
+        mut y: Array2<F>,
+        train_idx: &[usize],
+        val_idx: &[usize],
+    ) -> Result<ScaledRows<F>, TrainError> {
+        if x.nrows() != y.nrows() {
+            return Err(ShapeError::new("targets", (x.nrows(), y.ncols()), y.dim()).into());
+        }
+        if let Some(&r) = train_idx.iter().chain(val_idx).find(|&&r| r >= x.nrows()) {
+            return Err(TrainError::Data(format!(
+                "row {r} asked for, but the data has {} rows",
+                x.nrows()
+            )));
+        }
         let inputs = if self.scale_inputs {
-            Standardizer::fit(xs.view())
+            Standardizer::fit_rows(x.view(), train_idx)
         } else {
             Standardizer::identity(x.ncols())
         };
         let target = if self.scale_target {
-            Standardizer::fit(ys.view())
+            Standardizer::fit_rows(y.view(), train_idx)
         } else {
             Standardizer::identity(y.ncols())
         };
-        inputs.apply_in_place(&mut xs);
-        target.apply_in_place(&mut ys);
-        let val = (!val_idx.is_empty()).then(|| {
-            let (mut vx, mut vy) = (rows(x, val_idx), rows(y, val_idx));
-            inputs.apply_in_place(&mut vx);
-            target.apply_in_place(&mut vy);
-            (vx, vy)
-        });
+        inputs.apply_in_place(&mut x);
+        target.apply_in_place(&mut y);
         Ok(ScaledRows {
-            table_rows: x.nrows(),
             inputs,
             target,
-            x: xs,
-            y: ys,
-            val,
+            x,
+            y,
+            train: train_idx.to_vec(),
+            val: val_idx.to_vec(),
         })
     }
 
@@ -513,22 +526,21 @@ impl Recipe {
         monitor: Option<MonitorConfig>,
     ) -> Result<(Trained<F>, Option<RunReport>), TrainError> {
         let ScaledRows {
-            table_rows,
             inputs,
             target,
-            x: xs,
-            y: ys,
-            val,
+            x,
+            y,
+            train: train_idx,
+            val: val_idx,
         } = data;
         let mut network = self
-            .plan(*table_rows, xs.ncols(), ys.ncols())
+            .plan(x.nrows(), x.ncols(), y.ncols())
             .build::<F>(self.seed)?;
-        let mut config = self.config_for(*table_rows);
-        if val.is_none() {
-            // No validation rows given: train must not split its own.
+        let mut config = self.config_for(x.nrows());
+        if val_idx.is_empty() {
+            // No validation rows given (the report says so).
             config.val_frac = 0.0;
         }
-        let val_views = val.as_ref().map(|(vx, vy)| (vx.view(), vy.view()));
         // Revival needs a monitor even when no report is asked for; each run draws its own
         // revived weights.
         let revival = self.revival.map(|r| Revival {
@@ -546,25 +558,26 @@ impl Recipe {
             }),
             (None, None) => None,
         };
-        let mut watcher = monitor.map(|c| Monitor::new(probe_rows(xs.view()).view(), c));
+        let mut watcher = monitor.map(|c| Monitor::new(probe_rows(x.view(), train_idx).view(), c));
         let mut chain = Chain {
             monitor: watcher.as_mut(),
             rest: observers,
         };
-        let summary = train(
+        let summary = train_on_rows(
             &mut network,
-            xs.view(),
-            ys.view(),
-            val_views,
+            x.view(),
+            y.view(),
+            train_idx,
+            val_idx,
             &config,
             &mut [&mut chain],
         )?;
         let report = watcher.as_ref().map(|m| {
             let shape = DataShape {
-                train_rows: xs.nrows(),
-                val_rows: val.as_ref().map_or(0, |(v, _)| v.nrows()),
-                inputs: xs.ncols(),
-                outputs: ys.ncols(),
+                train_rows: train_idx.len(),
+                val_rows: val_idx.len(),
+                inputs: x.ncols(),
+                outputs: y.ncols(),
             };
             RunReport::new(
                 self.seed,
@@ -590,15 +603,27 @@ impl Recipe {
 /// Training and validation rows scaled for training ([`Recipe::scale_rows`]).
 #[derive(Debug, Clone)]
 pub struct ScaledRows<F: Scalar> {
-    /// Rows of the table the rows came from (the settings depend on it).
-    table_rows: usize,
     /// The input scaling, fitted on the training rows.
     pub inputs: Standardizer,
     /// The target scaling, fitted on the training rows.
     pub target: Standardizer,
+    /// Every row of the table, scaled.
     x: Array2<F>,
     y: Array2<F>,
-    val: Option<(Array2<F>, Array2<F>)>,
+    train: Vec<usize>,
+    val: Vec<usize>,
+}
+
+impl<F: Scalar> ScaledRows<F> {
+    /// Number of training rows.
+    pub fn train_rows(&self) -> usize {
+        self.train.len()
+    }
+
+    /// True when there are early-stopping (validation) rows.
+    pub fn has_validation(&self) -> bool {
+        !self.val.is_empty()
+    }
 }
 
 /// The monitor (if any) followed by the caller's observers, as one observer.
@@ -655,10 +680,10 @@ impl<F: Scalar> Observer<F> for Chain<'_, '_, '_, F> {
 /// Rows a [`Monitor`] probes at most.
 pub const PROBE_ROWS: usize = 512;
 
-/// Up to [`PROBE_ROWS`] rows spread evenly over `x`.
-fn probe_rows<F: Scalar>(x: ArrayView2<'_, F>) -> ndarray::Array2<F> {
-    let n = x.nrows();
+/// Up to [`PROBE_ROWS`] of the rows `rows` of `x`, spread evenly over them.
+fn probe_rows<F: Scalar>(x: ArrayView2<'_, F>, rows: &[usize]) -> ndarray::Array2<F> {
+    let n = rows.len();
     let take = n.min(PROBE_ROWS);
-    let idx: Vec<usize> = (0..take).map(|k| k * n / take.max(1)).collect();
+    let idx: Vec<usize> = (0..take).map(|k| rows[k * n / take.max(1)]).collect();
     x.select(Axis(0), &idx)
 }

@@ -17,12 +17,31 @@ pub struct Standardizer {
 impl Standardizer {
     /// Fits the column means and standard deviations of `x` (two-pass, in f64).
     pub fn fit<F: Scalar>(x: ArrayView2<'_, F>) -> Self {
-        let n = x.nrows().max(1) as f64;
-        let mut mean = Vec::with_capacity(x.ncols());
-        let mut sd = Vec::with_capacity(x.ncols());
-        for col in x.axis_iter(Axis(1)) {
-            let m = col.iter().map(|v| v.as_f64()).sum::<f64>() / n;
-            let var = col.iter().map(|v| (v.as_f64() - m).powi(2)).sum::<f64>() / n;
+        Self::fit_columns(x.ncols(), x.nrows(), |j| {
+            x.column(j).into_iter().map(|v| v.as_f64())
+        })
+    }
+
+    /// [`Standardizer::fit`] on the rows `rows` of `x` (the same numbers as fitting a copy of
+    /// those rows, without the copy).
+    pub fn fit_rows<F: Scalar>(x: ArrayView2<'_, F>, rows: &[usize]) -> Self {
+        Self::fit_columns(x.ncols(), rows.len(), |j| {
+            rows.iter().map(move |&r| x[(r, j)].as_f64())
+        })
+    }
+
+    /// The fit over `width` columns of `n` values each, column `j`'s values from `column(j)`.
+    fn fit_columns<I: Iterator<Item = f64>>(
+        width: usize,
+        n: usize,
+        column: impl Fn(usize) -> I,
+    ) -> Self {
+        let n = n.max(1) as f64;
+        let mut mean = Vec::with_capacity(width);
+        let mut sd = Vec::with_capacity(width);
+        for j in 0..width {
+            let m = column(j).sum::<f64>() / n;
+            let var = column(j).map(|v| (v - m).powi(2)).sum::<f64>() / n;
             let s = var.sqrt();
             mean.push(m);
             sd.push(if s > 1e-12 * m.abs().max(1e-300) && s > 0.0 {

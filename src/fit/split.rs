@@ -8,6 +8,7 @@ use crate::nn::layer::Pass;
 use crate::nn::loss::Loss;
 use crate::nn::network::Network;
 use ndarray::{s, Array2, ArrayView1, ArrayView2, Axis, CowArray, Ix2};
+use std::borrow::Cow;
 
 /// Most rows one validation or prediction forward pass takes at once: the network's buffers
 /// grow to the largest pass, so a bound here bounds them.
@@ -17,7 +18,7 @@ pub const CHUNK_ROWS: usize = 4096;
 pub(crate) struct Rows<'d, F> {
     x: ArrayView2<'d, F>,
     y: ArrayView2<'d, F>,
-    index: Option<Vec<usize>>,
+    index: Option<Cow<'d, [usize]>>,
 }
 
 impl<'d, F: Scalar> Rows<'d, F> {
@@ -27,17 +28,21 @@ impl<'d, F: Scalar> Rows<'d, F> {
     }
 
     /// The rows `index` of `x` and `y`, in that order.
-    pub(crate) fn subset(x: ArrayView2<'d, F>, y: ArrayView2<'d, F>, index: Vec<usize>) -> Self {
+    pub(crate) fn subset(
+        x: ArrayView2<'d, F>,
+        y: ArrayView2<'d, F>,
+        index: impl Into<Cow<'d, [usize]>>,
+    ) -> Self {
         Rows {
             x,
             y,
-            index: Some(index),
+            index: Some(index.into()),
         }
     }
 
     /// Number of rows.
     pub(crate) fn len(&self) -> usize {
-        self.index.as_ref().map_or(self.x.nrows(), Vec::len)
+        self.index.as_ref().map_or(self.x.nrows(), |idx| idx.len())
     }
 
     /// Input row `i`.

@@ -289,7 +289,47 @@ pub fn train<F: Scalar>(
         check_data(net, vx, vy, "validation")?;
     }
     let split = Split::new(x, y, validation, config)?;
-    let run = Run::new(net, &split, config);
+    run_split(net, &split, config, observers)
+}
+
+/// [`train`] on the rows `train_rows` of `x` → `y`, validating on the rows `val_rows` (none: no
+/// validation, and no split of its own whatever `config.val_frac` says), without copying them
+/// out: the same result as passing copies of those rows to [`train`].
+pub fn train_on_rows<F: Scalar>(
+    net: &mut Network<F>,
+    x: ArrayView2<'_, F>,
+    y: ArrayView2<'_, F>,
+    train_rows: &[usize],
+    val_rows: &[usize],
+    config: &TrainConfig,
+    observers: &mut [&mut dyn Observer<F>],
+) -> Result<TrainSummary, TrainError> {
+    config.validate()?;
+    check_data(net, x, y, "training")?;
+    if let Some(&r) = train_rows.iter().chain(val_rows).find(|&&r| r >= x.nrows()) {
+        return Err(TrainError::Data(format!(
+            "row {r} asked for, but the data has {} rows",
+            x.nrows()
+        )));
+    }
+    if train_rows.is_empty() {
+        return Err(TrainError::Data("no training rows".to_string()));
+    }
+    let split = Split {
+        train: Rows::subset(x, y, train_rows),
+        val: (!val_rows.is_empty()).then(|| Rows::subset(x, y, val_rows)),
+    };
+    run_split(net, &split, config, observers)
+}
+
+/// Trains on a split, by the optimizer's loop.
+fn run_split<'a, F: Scalar>(
+    net: &mut Network<F>,
+    split: &'a Split<'a, F>,
+    config: &'a TrainConfig,
+    observers: &mut [&mut dyn Observer<F>],
+) -> Result<TrainSummary, TrainError> {
+    let run = Run::new(net, split, config);
     observers.iter_mut().for_each(|o| o.start(net));
     if config.optimizer.is_full_batch() {
         run.full_batch(net, observers)

@@ -6,7 +6,7 @@
 //! Loading checks everything and bounds every size before anything is allocated.
 
 use crate::data::{DataError, Encoder, EncoderSpec, FeatureEncoding, Table};
-use crate::fit::ensemble::fit_ensemble;
+use crate::fit::ensemble::fit_ensemble_scaled;
 use crate::fit::monitor::MonitorConfig;
 use crate::fit::recipe::Recipe;
 use crate::fit::scale::Standardizer;
@@ -308,15 +308,13 @@ impl Model {
         check_trainable(recipe, x.nrows(), x.ncols()).map_err(FitError::Size)?;
         let (stop_rows, calibration) = split_validation(&val_rows, recipe.seed);
         let train_rows = complement(x.nrows(), &val_rows);
-        let ensemble = fit_ensemble(
-            recipe,
-            x.view(),
-            y.view(),
-            &train_rows,
-            &stop_rows,
-            monitor,
-            done,
-        )?;
+        let (table_rows, width) = x.dim();
+        // The members share the encoded table, scaled in place (no second copy); the
+        // calibration rows are kept unscaled first.
+        let xc = x.select(ndarray::Axis(0), &calibration);
+        let rows = recipe.scale_owned(x, y.clone(), &train_rows, &stop_rows)?;
+        let ensemble = fit_ensemble_scaled(recipe, &rows, monitor, done)?;
+        drop(rows);
         let mut report = ensemble.report;
         report.columns = encoder
             .columns
@@ -332,7 +330,6 @@ impl Model {
         }
         let mut members = ensemble.members;
         // Predictions on the calibration rows, per member, on the network's target scale.
-        let xc = x.select(ndarray::Axis(0), &calibration);
         let per_member: Vec<Vec<f64>> = members
             .iter_mut()
             .map(|m| {
@@ -372,14 +369,10 @@ impl Model {
             .unwrap_or_default();
         let first = &members[0];
         let s = &first.summary;
-        let loss = recipe.config_for(x.nrows()).objective.loss;
+        let loss = recipe.config_for(table_rows).objective.loss;
         // A quantile model does not aim at the mean, so its R² says nothing about it.
         let mean_like = !matches!(loss, Loss::Quantile { .. });
-        let warnings = result_warnings(
-            s.rows.0,
-            x.ncols(),
-            validation.as_ref().filter(|_| mean_like),
-        );
+        let warnings = result_warnings(s.rows.0, width, validation.as_ref().filter(|_| mean_like));
         let summary = ModelSummary {
             train_rows: s.rows.0,
             val_rows: s.rows.1,
