@@ -338,7 +338,7 @@ impl Activation {
             Activation::Gelu => each(x, out, gelu),
             Activation::Silu { beta } => {
                 let b = F::of(beta);
-                each(x, out, move |v| v * sigmoid(b * v))
+                each(x, out, move |v| silu(v, b))
             }
             // β = 1 skips a multiplication and a division by 1 (same bits as the general form).
             Activation::Softplus { beta: 1.0 } => each(x, out, softplus),
@@ -443,7 +443,7 @@ impl Activation {
                 let t = gelu_tanh_inner(x).tanh();
                 F::of(0.5) * x * (one + t)
             }
-            Activation::Silu { beta } => x * sigmoid(F::of(beta) * x),
+            Activation::Silu { beta } => silu(x, F::of(beta)),
             Activation::Mish => x * softplus(x).tanh(),
             Activation::Softplus { beta } => softplus_beta(x, F::of(beta)),
             Activation::CappedRelu { cap } => x.max(zero).min(F::of(cap)),
@@ -688,7 +688,16 @@ pub fn sigmoid<F: Scalar>(x: F) -> F {
             e / (F::one() + e)
         };
     }
-    F::one() / (F::one() + (-x).kernel_exp_fast())
+    x.kernel_sigmoid_times(F::one())
+}
+
+/// x·σ(βx).
+#[inline]
+fn silu<F: Scalar>(x: F, beta: F) -> F {
+    if F::REFERENCE {
+        return x * sigmoid(beta * x);
+    }
+    (beta * x).kernel_sigmoid_times(x)
 }
 
 /// σ(x) and 1 − σ(x): for x ≥ 0 as e^(−x)·σ(x), accurate where σ(x) rounds to 1 (and e^(−x)
@@ -735,7 +744,7 @@ fn tanh_derivative<F: Scalar>(x: F) -> F {
 #[inline]
 pub fn softplus<F: Scalar>(x: F) -> F {
     let positive = if x > F::zero() { x } else { F::zero() };
-    positive + (-x.abs()).kernel_exp_fast().kernel_ln_1p()
+    positive + x.abs().kernel_ln_1p_exp_neg()
 }
 
 /// ln(1 + e^(βx))/β as max(x, 0) + ln(1 + e^(−β|x|))/β: βx is never formed, so it cannot
@@ -743,7 +752,7 @@ pub fn softplus<F: Scalar>(x: F) -> F {
 #[inline]
 fn softplus_beta<F: Scalar>(x: F, beta: F) -> F {
     let positive = if x > F::zero() { x } else { F::zero() };
-    positive + (-(beta * x.abs())).kernel_exp_fast().kernel_ln_1p() / beta
+    positive + (beta * x.abs()).kernel_ln_1p_exp_neg() / beta
 }
 
 /// x·Φ(x) written as max(x, 0) − |x|·Φ(−|x|): one tail evaluation, no cancellation.
