@@ -59,6 +59,10 @@ pub trait Scalar:
     /// exact (libm) in `f64`; in `f32` a rational form in the manner of Abramowitz & Stegun
     /// 7.1.26 and a branch-free 2ˣ.
     fn kernel_normal_tail(self) -> (Self, Self);
+    /// For a ≥ 0, a·Φ(−a) (the part GELU subtracts from max(x, 0)): exact (libm) in `f64`; in
+    /// `f32` the form of [`Scalar::kernel_normal_tail`] with the factor a absorbed (no
+    /// multiplication by a).
+    fn kernel_scaled_normal_tail(self) -> Self;
     /// scale·σ(x) = scale/(1 + e^(−x)) for the sigmoid and SiLU kernels: the textbook
     /// two-branch formula on libm in `f64`; in `f32` with e^(−x) = 2ᵏ·2ᶠ (as in
     /// [`Scalar::kernel_exp_fast`]) written as 2⁻ᵏ/(2⁻ᵏ + 2ᶠ), so 2ᵏ is never multiplied out.
@@ -100,7 +104,7 @@ impl Scalar for f32 {
     }
     #[inline]
     fn kernel_erfc(self) -> Self {
-        let (tail, _) = normal_tail_f32(self.abs() * std::f32::consts::SQRT_2);
+        let (_, tail, _) = normal_tail_f32(self.abs() * std::f32::consts::SQRT_2);
         let erfc = tail + tail;
         if self < 0.0 {
             2.0 - erfc
@@ -110,7 +114,12 @@ impl Scalar for f32 {
     }
     #[inline]
     fn kernel_normal_tail(self) -> (Self, Self) {
-        normal_tail_f32(self)
+        let (_, tail, density) = normal_tail_f32(self);
+        (tail, density)
+    }
+    #[inline]
+    fn kernel_scaled_normal_tail(self) -> Self {
+        normal_tail_f32(self).0
     }
     #[inline]
     fn kernel_sigmoid_times(self, scale: Self) -> Self {
@@ -242,26 +251,29 @@ fn scale_exponent(v: f32, k_bits: u32) -> f32 {
     f32::from_bits(v.to_bits().wrapping_add(k_bits))
 }
 
-/// For a ≥ 0: Φ(−a) = e^(−a²/2)·t·Q(t) with t = 1/(c + a), the form of Abramowitz & Stegun
-/// 1964, formula 7.1.26 (there t = 1/(1 + p·a), one multiplication more), but c and the
-/// degree-4 Q are our own least-squares fit, weighted by max(1, a) because GELU multiplies the
-/// tail by a (error 1.0e-7 in max(1, a)·|Φ(−a) error| with the coefficients rounded to f32);
-/// and φ(a) = e^(−a²/2)/√(2π). The exponential, shared, is 2ᵏ·2ᶠ with k + f = −a²·log₂(e)/2
-/// clamped at −125, k added to the exponent field of 2ᶠ ≥ 0.7 (so the result stays normal).
-/// A NaN gives a NaN tail (the density may be garbage; the callers multiply it by the NaN).
+/// For a ≥ 0: (a·Φ(−a), Φ(−a), φ(a)). Φ(−a) = e^(−a²/2)·t·P(u) with t = 1/(3 + a) and
+/// u = a·t = a/(3 + a): the form of Abramowitz & Stegun 1964, formula 7.1.26 (e^(−a²/2) times
+/// a polynomial in t = 1/(1 + p·a)), rewritten in u, which is what GELU needs (a·Φ(−a) =
+/// e^(−a²/2)·u·P(u), no multiplication by a; the tail itself is t = (1 − u)/3 times the
+/// same). The degree-4 P is our own least-squares fit, weighted by max(1, a) because GELU
+/// multiplies the tail by a (error 1.1e-7 in max(1, a)·|Φ(−a) error| with the coefficients
+/// rounded to f32). φ(a) = e^(−a²/2)/√(2π). The exponential, shared, is 2ᵏ·2ᶠ with
+/// k + f = −a²·log₂(e)/2 clamped at −125, k added to the exponent field of 2ᶠ ≥ 0.7 (so the
+/// result stays normal). A NaN gives NaN in the first two (the density may be garbage; the
+/// callers multiply it by the NaN).
 #[inline(always)]
-fn normal_tail_f32(a: f32) -> (f32, f32) {
-    let t = 1.0 / (3.0025 + a);
-    let poly = t
-        * (0.372_729_27
-            + t * (1.789_746_5 + t * (-2.063_426_7 + t * (29.461_273 + t * -26.584_486))));
+fn normal_tail_f32(a: f32) -> (f32, f32, f32) {
+    let u = a / (3.0 + a);
+    let poly =
+        1.499_999_8 + u * (-2.090_428 + u * (1.067_536_2 + u * (0.222_338_13 + u * -0.326_259_2)));
     let w = at_least(a * a * (-0.5 * std::f32::consts::LOG2_E), -125.0);
     let rounded = w + ROUNDER;
     let f = w - (rounded - ROUNDER);
     // The low bits of `rounded` hold k; shifted up they are k in the exponent field (the
     // other bits of 1.5·2²³ shift out).
     let e = scale_exponent(exp2_frac(f), rounded.to_bits() << 23);
-    (poly * e, 0.398_942_3 * e)
+    let m = poly * e;
+    (u * m, (1.0 - u) * m * (1.0 / 3.0), 0.398_942_3 * e)
 }
 
 /// σ(x) = 1/(1 + e^(−x)) in f32: w = −x·log₂e clamped to [−126, 127] and split as k + f (as in
@@ -351,6 +363,10 @@ impl Scalar for f64 {
             0.5 * libm::erfc(self * std::f64::consts::FRAC_1_SQRT_2),
             inv_sqrt_2pi * (-0.5 * self * self).exp(),
         )
+    }
+    #[inline]
+    fn kernel_scaled_normal_tail(self) -> Self {
+        self * (0.5 * libm::erfc(self * std::f64::consts::FRAC_1_SQRT_2))
     }
     #[inline]
     fn kernel_sigmoid_times(self, scale: Self) -> Self {

@@ -759,10 +759,8 @@ fn gelu<F: Scalar>(x: F) -> F {
     if F::REFERENCE {
         return x * normal_cdf(x);
     }
-    let a = x.abs();
-    let (tail, _) = a.kernel_normal_tail();
     let positive = if x > F::zero() { x } else { F::zero() };
-    positive - a * tail
+    positive - x.abs().kernel_scaled_normal_tail()
 }
 
 /// Φ(x) + x·φ(x), the tail and the density sharing one exponential.
