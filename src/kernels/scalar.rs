@@ -310,8 +310,7 @@ fn tanh_f32(x: f32) -> f32 {
 /// ln(1 + u) = 2·atanh(s), s = u/(2 + u) = 2ᶠ/(2ᶠ + 2^(1−k)) ≤ 1/3: the same bits as u/(2 + u)
 /// (numerator and denominator are scaled by the exact power 2⁻ᵏ), without forming u. Then
 /// 2·atanh(s) = 2s·R(s²) (the 2 folded into the coefficients), R(w) = atanh(√w)/√w a degree-3
-/// polynomial fitted as in [`exp_reduced`] (relative error 1.7e-7 before rounding), evaluated in
-/// Estrin's order.
+/// polynomial fitted as in [`exp_reduced`] (relative error 1.7e-7 before rounding).
 #[inline(always)]
 fn ln_1p_exp_neg_f32(a: f32) -> f32 {
     let w = at_least(a * -std::f32::consts::LOG2_E, -126.0);
@@ -323,7 +322,7 @@ fn ln_1p_exp_neg_f32(a: f32) -> f32 {
     let p = exp2_frac(f);
     let s = p / (p + scale);
     let w = s * s;
-    s * ((1.999_999_6 + w * 0.666_759_8) + (w * w) * (0.395_900_6 + w * 0.342_224_54))
+    s * (1.999_999_6 + w * (0.666_759_8 + w * (0.395_900_6 + w * 0.342_224_54)))
 }
 
 impl Scalar for f64 {

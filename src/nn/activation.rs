@@ -336,6 +336,8 @@ impl Activation {
                 each(x, out, move |v| l * elu(v, a))
             }
             Activation::Gelu => each(x, out, gelu),
+            // β = 1 skips a multiplication (same bits as the general form).
+            Activation::Silu { beta: 1.0 } => each(x, out, move |v| silu(v, F::one())),
             Activation::Silu { beta } => {
                 let b = F::of(beta);
                 each(x, out, move |v| silu(v, b))
