@@ -239,7 +239,8 @@ fn exp_m1_f32(x: f32) -> f32 {
     let f = w - (rounded - ROUNDER);
     let f2 = f * f;
     let q = f
-        * ((0.693_147_2 + f * 0.240_226_49)
+        // The fitted first coefficient is ln 2 in f32.
+        * ((std::f32::consts::LN_2 + f * 0.240_226_49)
             + f2 * ((0.055_503_573 + f * 0.009_618_238)
                 + f2 * (0.001_339_073_5 + f * 0.000_154_035_11)));
     let s = pow2_of_rounded(rounded);
