@@ -205,8 +205,9 @@ fn exp_f32(x: f32) -> f32 {
 }
 
 /// 2ᶠ for |f| ≤ 1/2: 1 + f·Q(f), Q of degree 4 fitted as in [`exp_reduced`] (our fit:
-/// relative error 1.05e-7 with the coefficients rounded to f32), in Estrin's order (measured:
-/// 3–6% faster than Horner's in the sigmoid, SiLU, GELU and softplus loops with AVX2).
+/// relative error 1.05e-7 with the coefficients rounded to f32), in Estrin's order (the
+/// perf report's `activation_l1=` lines: 3–4% faster than Horner's for softplus with AVX2, the
+/// same for sigmoid, SiLU and GELU).
 #[inline(always)]
 fn exp2_frac(f: f32) -> f32 {
     let f2 = f * f;
