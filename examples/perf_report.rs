@@ -21,7 +21,9 @@
 //! matrixmultiply crate), in the same rounds, so a slow product cannot hide behind a good
 //! ratio. `wide_b1024_2t` runs on two threads (`relume::kernels::set_threads(2)`) and its
 //! rounds also time the one-thread step, for the `speedup` line (same median and interval).
-//! Each `activation=` line is timed in rounds paired with ReLU on the same 1024×1024 input.
+//! Each `activation=` line is timed in rounds paired with ReLU on the same 1024×1024 input; each
+//! `activation_l1=` line does the same on the first 4096 elements, which stay in the L1 cache,
+//! so it shows the kernel's arithmetic without the memory traffic (`ns_per_element=`).
 //!
 //! Run: `cargo run --release --example perf_report [-- CASE... --simd avx2 --rounds N]`.
 //! `--simd avx2` (or `baseline`) caps the instruction set (`relume::kernels::set_simd_limit`);
@@ -451,6 +453,42 @@ fn activations(rounds: usize) {
              relative_hi={hi:.2}",
             act.name(),
             median(&r.times[1])
+        );
+    }
+    // The same kernels on a slice that stays in L1: the arithmetic alone.
+    const L1_ELEMENTS: usize = 4096;
+    let small = &x.as_slice().expect("contiguous")[..L1_ELEMENTS];
+    let (mut relu_out, mut out) = (vec![0.0_f32; L1_ELEMENTS], vec![0.0_f32; L1_ELEMENTS]);
+    for act in [
+        Activation::Gelu,
+        Activation::ELU,
+        Activation::Selu,
+        Activation::SILU,
+        Activation::Tanh,
+        Activation::Sigmoid,
+        Activation::SOFTPLUS,
+    ] {
+        let r = interleaved(
+            rounds,
+            100,
+            Clock::Thread,
+            &mut [
+                &mut || {
+                    Activation::Relu.apply(small, &mut relu_out);
+                    black_box(&relu_out);
+                },
+                &mut || {
+                    act.apply(small, &mut out);
+                    black_box(&out);
+                },
+            ],
+        );
+        let (ratio, lo, hi) = paired_ratio(&r.times[1], &r.times[0]);
+        println!(
+            "activation_l1={} ns_per_element={:.3} relative_to_relu={ratio:.2} \
+             relative_lo={lo:.2} relative_hi={hi:.2}",
+            act.name(),
+            median(&r.times[1]) * 1e3 / L1_ELEMENTS as f64
         );
     }
 }

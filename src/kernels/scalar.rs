@@ -47,23 +47,34 @@ pub trait Scalar:
     /// approximation that vectorizes (relative error ≤ 2e-7).
     fn kernel_exp(self) -> Self;
     /// eˣ for the activation kernels that need it to an error small against 1 + |result|
-    /// (sigmoid, softplus): exact (libm) in `f64`; in `f32` 2^(x·log₂e) with one rounding
+    /// (the sigmoid, SiLU and tanh derivatives): exact (libm) in `f64`; in `f32` 2^(x·log₂e) with one rounding
     /// more than [`Scalar::kernel_exp`], so a relative error ≤ 1.1e-7 + 9e-8·|x|, and cheaper.
     fn kernel_exp_fast(self) -> Self;
     /// eˣ − 1 for the activation kernels, without cancellation near 0 (as [`Scalar::kernel_exp`]).
     fn kernel_exp_m1(self) -> Self;
-    /// erfc(x) for the activation kernels: exact (libm) in `f64`; in `f32` Abramowitz & Stegun
-    /// 7.1.26 (absolute error ≤ 1.5e-7 on erf), branch-free.
+    /// erfc(x) for the activation kernels: exact (libm) in `f64`; in `f32` 2·Φ(−|x|√2) by the
+    /// tail of [`Scalar::kernel_normal_tail`] (absolute error about 2.2e-7, twice the
+    /// tail's), branch-free.
     fn kernel_erfc(self) -> Self;
     /// For a ≥ 0, the standard normal tail Φ(−a) and density φ(a), sharing one exponential:
-    /// exact (libm) in `f64`; in `f32` Abramowitz & Stegun 7.1.26 and a branch-free 2ˣ.
+    /// exact (libm) in `f64`; in `f32` a rational form in the manner of Abramowitz & Stegun
+    /// 7.1.26 and a branch-free 2ˣ.
     fn kernel_normal_tail(self) -> (Self, Self);
+    /// For a ≥ 0, a·Φ(−a) (the part GELU subtracts from max(x, 0)): exact (libm) in `f64`; in
+    /// `f32` the form of [`Scalar::kernel_normal_tail`] with the factor a absorbed (no
+    /// multiplication by a).
+    fn kernel_scaled_normal_tail(self) -> Self;
+    /// scale·σ(x) = scale/(1 + e^(−x)) for the sigmoid and SiLU kernels: the textbook
+    /// two-branch formula on libm in `f64`; in `f32` with e^(−x) = 2ᵏ·2ᶠ (as in
+    /// [`Scalar::kernel_exp_fast`]) written as 2⁻ᵏ/(2⁻ᵏ + 2ᶠ), so 2ᵏ is never multiplied out.
+    fn kernel_sigmoid_times(self, scale: Self) -> Self;
     /// tanh(x) for the activation kernels: libm in `f64`; in `f32` an odd rational function
     /// on [−9, 9] (absolute error ≤ 2e-7 in tests/activations.rs), saturating beyond.
     fn kernel_tanh(self) -> Self;
-    /// ln(1 + t) for 0 ≤ t ≤ 1 (the range softplus needs): libm in `f64`; in `f32`
-    /// 2·atanh(t/(2 + t)) by a polynomial (relative error ≤ 2e-7), branch-free.
-    fn kernel_ln_1p(self) -> Self;
+    /// ln(1 + e^(−a)) for a ≥ 0 (softplus without its linear part): libm in `f64`; in `f32`
+    /// 2·atanh(s) with s = u/(2 + u), u = e^(−a) = 2ᵏ·2ᶠ, written as s = 2ᶠ/(2ᶠ + 2^(1−k)) so the
+    /// scaling by 2ᵏ is never multiplied out, and atanh by a polynomial; branch-free.
+    fn kernel_ln_1p_exp_neg(self) -> Self;
 }
 
 impl Scalar for f32 {
@@ -94,7 +105,7 @@ impl Scalar for f32 {
     }
     #[inline]
     fn kernel_erfc(self) -> Self {
-        let (tail, _) = normal_tail_f32(self.abs() * std::f32::consts::SQRT_2);
+        let (_, tail, _) = normal_tail_f32(self.abs() * std::f32::consts::SQRT_2);
         let erfc = tail + tail;
         if self < 0.0 {
             2.0 - erfc
@@ -104,15 +115,24 @@ impl Scalar for f32 {
     }
     #[inline]
     fn kernel_normal_tail(self) -> (Self, Self) {
-        normal_tail_f32(self)
+        let (_, tail, density) = normal_tail_f32(self);
+        (tail, density)
+    }
+    #[inline]
+    fn kernel_scaled_normal_tail(self) -> Self {
+        normal_tail_f32(self).0
+    }
+    #[inline]
+    fn kernel_sigmoid_times(self, scale: Self) -> Self {
+        scale * sigmoid_f32(self)
     }
     #[inline]
     fn kernel_tanh(self) -> Self {
         tanh_f32(self)
     }
     #[inline]
-    fn kernel_ln_1p(self) -> Self {
-        ln_1p_unit_f32(self)
+    fn kernel_ln_1p_exp_neg(self) -> Self {
+        ln_1p_exp_neg_f32(self)
     }
 }
 
@@ -167,12 +187,13 @@ fn reduce(x: f32) -> (f32, f32) {
 
 /// eʳ for |r| ≤ ln 2 / 2: 1 + r·Q(r), Q of degree 4 fitted by weighted least squares at 200
 /// Chebyshev points for relative error (our fit: 1.05e-7 with the coefficients rounded to f32;
-/// checked against libm in tests/activations.rs).
+/// checked against libm in tests/activations.rs), evaluated in Estrin's order (pairs of terms
+/// combined with r², a shorter dependency chain than Horner's order).
 #[inline(always)]
 fn exp_reduced(r: f32) -> f32 {
-    1.0 + r
-        * (0.999_999_5
-            + r * (0.499_991_42 + r * (0.166_681_14 + r * (0.041_898_73 + r * 0.008_261_531))))
+    let r2 = r * r;
+    (1.0 + r * 0.999_999_5)
+        + r2 * ((0.499_991_42 + r * 0.166_681_14) + r2 * (0.041_898_73 + r * 0.008_261_531))
 }
 
 /// Branch-free eˣ in f32: x = k·ln 2 + r, eʳ by [`exp_reduced`], 2ᵏ built from its bits.
@@ -184,17 +205,19 @@ fn exp_f32(x: f32) -> f32 {
 }
 
 /// 2ᶠ for |f| ≤ 1/2: 1 + f·Q(f), Q of degree 4 fitted as in [`exp_reduced`] (our fit:
-/// relative error 1.05e-7 with the coefficients rounded to f32).
+/// relative error 1.05e-7 with the coefficients rounded to f32), in Estrin's order (the
+/// perf report's `activation_l1=` lines: 3–4% faster than Horner's for softplus with AVX2, the
+/// same for sigmoid, SiLU and GELU).
 #[inline(always)]
 fn exp2_frac(f: f32) -> f32 {
-    1.0 + f
-        * (0.693_146_9
-            + f * (0.240_222_38 + f * (0.055_508_93 + f * (0.009_671_698 + f * 0.001_321_867_2))))
+    let f2 = f * f;
+    (1.0 + f * 0.693_146_9)
+        + f2 * ((0.240_222_38 + f * 0.055_508_93) + f2 * (0.009_671_698 + f * 0.001_321_867_2))
 }
 
 /// eˣ as 2ʷ, w = x·log₂e clamped to [−126, 127] and split into an integer and a fraction: the
 /// rounding of w adds a relative error of up to 9e-8·|x| (no Cody–Waite split), which the
-/// callers (sigmoid, softplus) multiply by a bounded factor.
+/// callers (the sigmoid, SiLU and tanh derivatives) multiply by a bounded factor.
 #[inline(always)]
 fn exp_fast_f32(x: f32) -> f32 {
     let w = at_most(at_least(x * std::f32::consts::LOG2_E, -126.0), 127.0);
@@ -203,35 +226,73 @@ fn exp_fast_f32(x: f32) -> f32 {
     pow2_of_rounded(rounded) * exp2_frac(f)
 }
 
-/// Branch-free eˣ − 1 in f32 without cancellation near 0: with x = k·ln 2 + r,
-/// eˣ − 1 = 2ᵏ(eʳ − 1) + (2ᵏ − 1), and eʳ − 1 = r + r²·P(r) (P of degree 4, fitted as in
-/// [`exp_reduced`]: relative error 2.5e-8 before rounding). For k = 0 this is the polynomial
-/// alone, accurate relative to the result.
+/// Branch-free eˣ − 1 in f32 without cancellation near 0: with x clamped to [−87.3, 88.3]
+/// (so that a caller's own clamp to x ≤ 0 makes the upper one vanish) and x·log₂e = k + f
+/// (split as in [`exp_fast_f32`]), eˣ − 1 = 2ᵏ(2ᶠ − 1) + (2ᵏ − 1), and
+/// 2ᶠ − 1 = f·P(f), P of degree 5 fitted as in [`exp_reduced`] (our fit: relative error 2.1e-8
+/// with the coefficients rounded to f32), in Estrin's order. For k = 0 this is the polynomial
+/// alone, accurate relative to the result; the rounding of x·log₂e adds a relative error of up
+/// to 9e-8·|x| to eˣ, which is below 4e-8 of the result's distance to −1 for x ≤ 0.
 #[inline(always)]
 fn exp_m1_f32(x: f32) -> f32 {
-    let (t, r) = reduce(at_most(at_least(x, -87.3), 88.3));
-    let q = r + r
-        * r
-        * (0.5
-            + r * (0.166_665_77 + r * (0.041_666_465 + r * (0.008_363_176 + r * 0.001_393_364_4))));
-    let s = pow2_of_rounded(t);
+    let w = at_most(at_least(x, -87.3), 88.3) * std::f32::consts::LOG2_E;
+    let rounded = w + ROUNDER;
+    let f = w - (rounded - ROUNDER);
+    let f2 = f * f;
+    let q = f
+        // The fitted first coefficient is ln 2 in f32.
+        * ((std::f32::consts::LN_2 + f * 0.240_226_49)
+            + f2 * ((0.055_503_573 + f * 0.009_618_238)
+                + f2 * (0.001_339_073_5 + f * 0.000_154_035_11)));
+    let s = pow2_of_rounded(rounded);
     s * q + (s - 1.0)
 }
 
-/// For a ≥ 0: Φ(−a) = erfc(a/√2)/2 by Abramowitz & Stegun 1964, formula 7.1.26 (absolute
-/// error ≤ 1.5e-7 on erf; coefficients halved here), and φ(a) = e^(−a²/2)/√(2π); the
-/// exponential, shared, is 2ʷ with w = −a²·log₂(e)/2 split into an integer and a fraction.
+/// v·2ᵏ by adding k to the exponent field (`k_bits` = k << 23, any wrap-around is mod 2³²):
+/// exact while v·2ᵏ stays normal, which the callers guarantee; a multiplication less than
+/// building 2ᵏ and multiplying.
 #[inline(always)]
-fn normal_tail_f32(a: f32) -> (f32, f32) {
-    let t = 1.0 / (1.0 + 0.231_641_89 * a);
-    let poly = t
-        * (0.127_414_8
-            + t * (-0.142_248_37 + t * (0.710_706_9 + t * (-0.726_576 + t * 0.530_702_7))));
-    let w = at_least(a * a * (-0.5 * std::f32::consts::LOG2_E), -126.0);
+fn scale_exponent(v: f32, k_bits: u32) -> f32 {
+    f32::from_bits(v.to_bits().wrapping_add(k_bits))
+}
+
+/// For a ≥ 0: (a·Φ(−a), Φ(−a), φ(a)). Φ(−a) = e^(−a²/2)·t·P(u) with t = 1/(3 + a) and
+/// u = a·t = a/(3 + a): the form of Abramowitz & Stegun 1964, formula 7.1.26 (e^(−a²/2) times
+/// a polynomial in t = 1/(1 + p·a)), rewritten in u, which is what GELU needs (a·Φ(−a) =
+/// e^(−a²/2)·u·P(u), no multiplication by a; the tail itself is t = (1 − u)/3 times the
+/// same). The degree-4 P is our own least-squares fit, weighted by max(1, a) because GELU
+/// multiplies the tail by a (error 1.1e-7 in max(1, a)·|Φ(−a) error| with the coefficients
+/// rounded to f32). φ(a) = e^(−a²/2)/√(2π). The exponential, shared, is 2ᵏ·2ᶠ with
+/// k + f = −a²·log₂(e)/2 clamped at −125, k added to the exponent field of 2ᶠ ≥ 0.7 (so the
+/// result stays normal). A NaN gives NaN in the first two (the density may be garbage; the
+/// callers multiply it by the NaN).
+#[inline(always)]
+fn normal_tail_f32(a: f32) -> (f32, f32, f32) {
+    let u = a / (3.0 + a);
+    let poly =
+        1.499_999_8 + u * (-2.090_428 + u * (1.067_536_2 + u * (0.222_338_13 + u * -0.326_259_2)));
+    let w = at_least(a * a * (-0.5 * std::f32::consts::LOG2_E), -125.0);
     let rounded = w + ROUNDER;
     let f = w - (rounded - ROUNDER);
-    let e = pow2_of_rounded(rounded) * exp2_frac(f);
-    (poly * e, 0.398_942_3 * e)
+    // The low bits of `rounded` hold k; shifted up they are k in the exponent field (the
+    // other bits of 1.5·2²³ shift out).
+    let e = scale_exponent(exp2_frac(f), rounded.to_bits() << 23);
+    let m = poly * e;
+    (u * m, (1.0 - u) * m * (1.0 / 3.0), 0.398_942_3 * e)
+}
+
+/// σ(x) = 1/(1 + e^(−x)) in f32: w = −x·log₂e clamped to [−126, 127] and split as k + f (as in
+/// [`exp_fast_f32`]), then σ = 2⁻ᵏ/(2⁻ᵏ + 2ᶠ), the power built from its bits (0 for k = 127,
+/// so σ(x) < 6e-39 comes out as 0). The same relative error as 1/(1 + e^(−x)) with
+/// [`exp_fast_f32`], one multiplication less.
+#[inline(always)]
+fn sigmoid_f32(x: f32) -> f32 {
+    let w = at_most(at_least(x * -std::f32::consts::LOG2_E, -126.0), 127.0);
+    let rounded = w + ROUNDER;
+    let f = w - (rounded - ROUNDER);
+    // Biased exponent 127 − k.
+    let inv = f32::from_bits((0x4B40_0000_u32 + 127).wrapping_sub(rounded.to_bits()) << 23);
+    inv / (inv + exp2_frac(f))
 }
 
 /// tanh(x) in f32: x·P(x²)/Q(x²) on [−9, 9] (beyond, tanh rounds to ±1 in f32), P of degree 5
@@ -249,12 +310,22 @@ fn tanh_f32(x: f32) -> f32 {
     x * p / q
 }
 
-/// ln(1 + t) in f32 for 0 ≤ t ≤ 1: 2s·R(s²) (the 2 folded into the coefficients) with s = t/(2 + t) ≤ 1/3, where R(w) = atanh(√w)/√w
-/// is a degree-3 polynomial fitted as in [`exp_reduced`] (relative error 1.7e-7 before
-/// rounding); accurate relative to the result even for tiny t.
+/// ln(1 + e^(−a)) in f32 for a ≥ 0 (a NaN stays NaN). With w = −a·log₂e clamped to [−126, 0]
+/// and split as k + f (as in [`exp_fast_f32`]), u = e^(−a) = 2ᵏ·2ᶠ and
+/// ln(1 + u) = 2·atanh(s), s = u/(2 + u) = 2ᶠ/(2ᶠ + 2^(1−k)) ≤ 1/3: the same bits as u/(2 + u)
+/// (numerator and denominator are scaled by the exact power 2⁻ᵏ), without forming u. Then
+/// 2·atanh(s) = 2s·R(s²) (the 2 folded into the coefficients), R(w) = atanh(√w)/√w a degree-3
+/// polynomial fitted as in [`exp_reduced`] (relative error 1.7e-7 before rounding).
 #[inline(always)]
-fn ln_1p_unit_f32(t: f32) -> f32 {
-    let s = t / (2.0 + t);
+fn ln_1p_exp_neg_f32(a: f32) -> f32 {
+    let w = at_least(a * -std::f32::consts::LOG2_E, -126.0);
+    let rounded = w + ROUNDER;
+    let f = w - (rounded - ROUNDER);
+    // 2^(1−k): the low bits of `rounded` hold k, so 128 − k is the biased exponent of 2^(1−k)
+    // (between 128 and 254 for k in [−126, 0]).
+    let scale = f32::from_bits((0x4B40_0000_u32 + 128).wrapping_sub(rounded.to_bits()) << 23);
+    let p = exp2_frac(f);
+    let s = p / (p + scale);
     let w = s * s;
     s * (1.999_999_6 + w * (0.666_759_8 + w * (0.395_900_6 + w * 0.342_224_54)))
 }
@@ -298,11 +369,25 @@ impl Scalar for f64 {
         )
     }
     #[inline]
+    fn kernel_scaled_normal_tail(self) -> Self {
+        self * (0.5 * libm::erfc(self * std::f64::consts::FRAC_1_SQRT_2))
+    }
+    #[inline]
+    fn kernel_sigmoid_times(self, scale: Self) -> Self {
+        // Neither branch overflows.
+        if self >= 0.0 {
+            scale * (1.0 / (1.0 + (-self).exp()))
+        } else {
+            let e = self.exp();
+            scale * (e / (1.0 + e))
+        }
+    }
+    #[inline]
     fn kernel_tanh(self) -> Self {
         self.tanh()
     }
     #[inline]
-    fn kernel_ln_1p(self) -> Self {
-        self.ln_1p()
+    fn kernel_ln_1p_exp_neg(self) -> Self {
+        (-self).exp().ln_1p()
     }
 }

@@ -336,9 +336,11 @@ impl Activation {
                 each(x, out, move |v| l * elu(v, a))
             }
             Activation::Gelu => each(x, out, gelu),
+            // β = 1 skips a multiplication (same bits as the general form).
+            Activation::Silu { beta: 1.0 } => each(x, out, move |v| silu(v, F::one())),
             Activation::Silu { beta } => {
                 let b = F::of(beta);
-                each(x, out, move |v| v * sigmoid(b * v))
+                each(x, out, move |v| silu(v, b))
             }
             // β = 1 skips a multiplication and a division by 1 (same bits as the general form).
             Activation::Softplus { beta: 1.0 } => each(x, out, softplus),
@@ -443,7 +445,7 @@ impl Activation {
                 let t = gelu_tanh_inner(x).tanh();
                 F::of(0.5) * x * (one + t)
             }
-            Activation::Silu { beta } => x * sigmoid(F::of(beta) * x),
+            Activation::Silu { beta } => silu(x, F::of(beta)),
             Activation::Mish => x * softplus(x).tanh(),
             Activation::Softplus { beta } => softplus_beta(x, F::of(beta)),
             Activation::CappedRelu { cap } => x.max(zero).min(F::of(cap)),
@@ -655,14 +657,12 @@ fn negative_part<F: Scalar>(x: F) -> F {
     }
 }
 
+/// max(x, 0) + α(e^min(x, 0) − 1): one of the two terms is exactly 0, and an addition is
+/// cheaper than a select.
 #[inline]
 fn elu<F: Scalar>(x: F, alpha: F) -> F {
-    let negative = alpha * negative_part(x).kernel_exp_m1();
-    if x > F::zero() {
-        x
-    } else {
-        negative
-    }
+    let positive = if x > F::zero() { x } else { F::zero() };
+    positive + alpha * negative_part(x).kernel_exp_m1()
 }
 
 #[inline]
@@ -688,7 +688,16 @@ pub fn sigmoid<F: Scalar>(x: F) -> F {
             e / (F::one() + e)
         };
     }
-    F::one() / (F::one() + (-x).kernel_exp_fast())
+    x.kernel_sigmoid_times(F::one())
+}
+
+/// x·σ(βx).
+#[inline]
+fn silu<F: Scalar>(x: F, beta: F) -> F {
+    if F::REFERENCE {
+        return x * sigmoid(beta * x);
+    }
+    (beta * x).kernel_sigmoid_times(x)
 }
 
 /// σ(x) and 1 − σ(x): for x ≥ 0 as e^(−x)·σ(x), accurate where σ(x) rounds to 1 (and e^(−x)
@@ -735,7 +744,7 @@ fn tanh_derivative<F: Scalar>(x: F) -> F {
 #[inline]
 pub fn softplus<F: Scalar>(x: F) -> F {
     let positive = if x > F::zero() { x } else { F::zero() };
-    positive + (-x.abs()).kernel_exp_fast().kernel_ln_1p()
+    positive + x.abs().kernel_ln_1p_exp_neg()
 }
 
 /// ln(1 + e^(βx))/β as max(x, 0) + ln(1 + e^(−β|x|))/β: βx is never formed, so it cannot
@@ -743,7 +752,7 @@ pub fn softplus<F: Scalar>(x: F) -> F {
 #[inline]
 fn softplus_beta<F: Scalar>(x: F, beta: F) -> F {
     let positive = if x > F::zero() { x } else { F::zero() };
-    positive + (-(beta * x.abs())).kernel_exp_fast().kernel_ln_1p() / beta
+    positive + (beta * x.abs()).kernel_ln_1p_exp_neg() / beta
 }
 
 /// x·Φ(x) written as max(x, 0) − |x|·Φ(−|x|): one tail evaluation, no cancellation.
@@ -752,10 +761,8 @@ fn gelu<F: Scalar>(x: F) -> F {
     if F::REFERENCE {
         return x * normal_cdf(x);
     }
-    let a = x.abs();
-    let (tail, _) = a.kernel_normal_tail();
     let positive = if x > F::zero() { x } else { F::zero() };
-    positive - a * tail
+    positive - x.abs().kernel_scaled_normal_tail()
 }
 
 /// Φ(x) + x·φ(x), the tail and the density sharing one exponential.
