@@ -199,6 +199,30 @@ fn finite_inputs_give_finite_values_and_derivatives() {
             );
         }
     }
+    // Far out, every derivative has reached its limit: it equals the derivative at ±1000
+    // (the asymptotic slope: 1, 0, the negative slope, or SELU's scale). GELU's f32 derivative
+    // once gave 2.8 at 3e38, its density term floored at the smallest exponent.
+    for act in family() {
+        for sign in [1.0_f64, -1.0] {
+            let s32 = sign as f32;
+            let near32 = act.derivative(s32 * 1e3_f32);
+            let near64 = act.derivative(sign * 1e3_f64);
+            for far in [s32 * 1e4_f32, s32 * 3e38_f32] {
+                let d = act.derivative(far);
+                assert!(
+                    (d - near32).abs() <= 1e-6 * (1.0 + near32.abs()),
+                    "{act} derivative at {far:e} (f32): {d}, at ±1e3: {near32}"
+                );
+            }
+            for far in [sign * 1e4_f64, sign * 1e300] {
+                let d = act.derivative(far);
+                assert!(
+                    (d - near64).abs() <= 1e-12 * (1.0 + near64.abs()),
+                    "{act} derivative at {far:e}: {d}, at ±1e3: {near64}"
+                );
+            }
+        }
+    }
     // And the limits are the right ones.
     assert_eq!(Activation::Gelu.value(1e300_f64), 1e300);
     assert_eq!(Activation::GeluTanh.value(-1e300_f64), 0.0);

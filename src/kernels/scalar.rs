@@ -264,8 +264,8 @@ fn scale_exponent(v: f32, k_bits: u32) -> f32 {
 /// multiplies the tail by a (error 1.1e-7 in max(1, a)·|Φ(−a) error| with the coefficients
 /// rounded to f32). φ(a) = e^(−a²/2)/√(2π). The exponential, shared, is 2ᵏ·2ᶠ with
 /// k + f = −a²·log₂(e)/2 clamped at −125, k added to the exponent field of 2ᶠ ≥ 0.7 (so the
-/// result stays normal). A NaN gives NaN in the first two (the density may be garbage; the
-/// callers multiply it by the NaN).
+/// result stays normal), and 0 for a > 13. A NaN gives NaN in the first two (the density is
+/// then 0; the callers add it to the NaN).
 #[inline(always)]
 fn normal_tail_f32(a: f32) -> (f32, f32, f32) {
     let u = a / (3.0 + a);
@@ -277,6 +277,9 @@ fn normal_tail_f32(a: f32) -> (f32, f32, f32) {
     // The low bits of `rounded` hold k; shifted up they are k in the exponent field (the
     // other bits of 1.5·2²³ shift out).
     let e = scale_exponent(exp2_frac(f), rounded.to_bits() << 23);
+    // Past a = 13 the clamp holds e at about 2⁻¹²⁵ where e^(−a²/2) is below 1e-36: take 0, or
+    // x·φ(x) in GELU's derivative would come out O(1) for x near the f32 maximum.
+    let e = if a <= 13.0 { e } else { 0.0 };
     let m = poly * e;
     (u * m, (1.0 - u) * m * (1.0 / 3.0), 0.398_942_3 * e)
 }

@@ -709,8 +709,21 @@ fn sigmoid_and_complement<F: Scalar>(x: F) -> (F, F) {
         return (s, F::one() - s);
     }
     let e = (-x).kernel_exp_fast();
-    let s = F::one() / (F::one() + e);
-    let complement = if x < F::zero() { F::one() - s } else { e * s };
+    // Beyond ±87 the kernel clamps e^(−x) to the f32 exponent range (about 2^±126): take the
+    // limits there, or x·σ(x)·(1 − σ(x)) in SiLU's derivative comes out O(1) near ±3e38.
+    let far = F::of(87.0);
+    let s = if x < -far {
+        F::zero()
+    } else {
+        F::one() / (F::one() + e)
+    };
+    let complement = if x < F::zero() {
+        F::one() - s
+    } else if x > far {
+        F::zero()
+    } else {
+        e * s
+    };
     (s, complement)
 }
 
