@@ -287,20 +287,20 @@ impl FeatureEncoding {
                     },
                     Cell::Number(_) => return Err(CellProblem::NotACategory),
                 };
-                match slot {
-                    Some(Slot::Level(i)) => out[i] = 1.0,
-                    Some(Slot::Pooled) => out[other] = 1.0,
+                outcome.on = match slot {
+                    Some(Slot::Level(i)) => Some(i),
+                    Some(Slot::Pooled) => Some(other),
                     None if unseen == UnseenPolicy::Error => {
                         return Err(CellProblem::UnseenCategory)
                     }
                     None => {
                         outcome.unseen = true;
-                        if pooled.is_some() {
-                            out[other] = 1.0;
-                        } else {
-                            out.fill(f64::NAN);
-                        }
+                        pooled.is_some().then_some(other)
                     }
+                };
+                match outcome.on {
+                    Some(i) => out[i] = 1.0,
+                    None => out.fill(f64::NAN),
                 }
             }
             FeatureEncoding::Date {
@@ -386,6 +386,9 @@ pub struct CellOutcome {
     pub unseen: bool,
     /// The value of a numeric or date cell, for the range check (None if filled or text).
     pub value: Option<f64>,
+    /// For a category: which of its inputs is 1 (None when they are all NaN, "at the training
+    /// mean").
+    pub on: Option<usize>,
 }
 
 /// Where a known category value goes.

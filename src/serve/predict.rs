@@ -109,6 +109,11 @@ pub struct Predictor {
     /// subtracted before the first layer, so that a level that is off contributes exactly
     /// nothing and is skipped.
     shift: Vec<f32>,
+    /// Per encoded input, the standardized value of 1 for one-hot inputs (0 for the rest).
+    on: Vec<f32>,
+    /// Per feature, whether it is one-hot with every standardized 0 and 1 within range: its
+    /// inputs are then copied from `shift` and `on`.
+    one_hot_ready: Vec<bool>,
     /// Per member, its first affine layer's bias with the shift folded in (None when the
     /// network does not start with an affine layer).
     first_bias: Vec<Option<Vec<f32>>>,
@@ -134,7 +139,17 @@ impl Predictor {
             .max(model.encoder.width());
         let input = model.encoder.width();
         let layouts = members.iter().map(|m| Layout::new(m, input)).collect();
-        let shift = one_hot_shift(model);
+        let (shift, on) = (one_hot_scaled(model, 0.0), one_hot_scaled(model, 1.0));
+        let mut k = 0;
+        let one_hot_ready = (model.encoder.features.iter())
+            .map(|f| {
+                let inputs = k..k + f.width();
+                k = inputs.end;
+                matches!(f, FeatureEncoding::Category { .. })
+                    && within_range(&shift[inputs.clone()])
+                    && within_range(&on[inputs])
+            })
+            .collect();
         let first_bias = members.iter().map(|m| folded_bias(m, &shift)).collect();
         let mut predictor = Predictor {
             encoder: model.encoder.clone(),
@@ -148,6 +163,8 @@ impl Predictor {
             layouts,
             baseline: 0.0,
             shift,
+            on,
+            one_hot_ready,
             first_bias,
         };
         let mut scratch = predictor.scratch();
@@ -306,24 +323,33 @@ impl Predictor {
                 _ => false,
             };
             extrapolated |= out_of_range[i];
-            for (j, &v) in slots.iter().enumerate() {
-                // NaN marks "at the training mean" (an unseen category without a pooled level).
-                a[k + j] = if v.is_nan() {
-                    0.0
-                } else {
-                    ((v - self.inputs.mean[k + j]) / self.inputs.sd[k + j]) as f32
-                };
-            }
-            // A scaled value beyond f32 (or one the network cannot carry) would give a
-            // meaningless number: refuse the row instead.
-            if a[k..k + w]
-                .iter()
-                .any(|v| !v.is_finite() || v.abs() > MAX_SCALED_INPUT)
-            {
-                return Err(RowError {
-                    feature: i,
-                    kind: RowErrorKind::Overflow,
-                });
+            let scaled = &mut a[k..k + w];
+            match outcome.on {
+                // One-hot inputs with one level on: every scaled value was computed in `new`
+                // by the formula below (same bits) and found within range there.
+                Some(on) if self.one_hot_ready[i] => {
+                    scaled.copy_from_slice(&self.shift[k..k + w]);
+                    scaled[on] = self.on[k + on];
+                }
+                _ => {
+                    for (j, (x, &v)) in scaled.iter_mut().zip(&*slots).enumerate() {
+                        // NaN marks "at the training mean" (an unseen category without a
+                        // pooled level).
+                        *x = if v.is_nan() {
+                            0.0
+                        } else {
+                            ((v - self.inputs.mean[k + j]) / self.inputs.sd[k + j]) as f32
+                        };
+                    }
+                    // A scaled value beyond f32 (or one the network cannot carry) would give
+                    // a meaningless number: refuse the row instead.
+                    if !within_range(scaled) {
+                        return Err(RowError {
+                            feature: i,
+                            kind: RowErrorKind::Overflow,
+                        });
+                    }
+                }
             }
             k += w;
         }
@@ -651,22 +677,29 @@ pub struct TableRow {
     pub error: Option<String>,
 }
 
-/// The standardized value of 0 for every one-hot input of `model` (computed exactly as a
-/// row's inputs are, so an input that is off gives exactly this), 0 for every other input.
-fn one_hot_shift(model: &Model) -> Vec<f32> {
-    let mut shift = Vec::with_capacity(model.encoder.width());
+/// The standardized value of `v` for every one-hot input of `model` (computed exactly as a
+/// row's inputs are, so an input that is `v` gives exactly this), 0 for every other input.
+fn one_hot_scaled(model: &Model, v: f64) -> Vec<f32> {
+    let mut scaled = Vec::with_capacity(model.encoder.width());
     for feature in &model.encoder.features {
         let one_hot = matches!(feature, FeatureEncoding::Category { .. });
         for _ in 0..feature.width() {
-            let k = shift.len();
-            shift.push(if one_hot {
-                ((0.0 - model.inputs.mean[k]) / model.inputs.sd[k]) as f32
+            let k = scaled.len();
+            scaled.push(if one_hot {
+                ((v - model.inputs.mean[k]) / model.inputs.sd[k]) as f32
             } else {
                 0.0
             });
         }
     }
-    shift
+    scaled
+}
+
+/// Whether every standardized input is finite and at most [`MAX_SCALED_INPUT`] in size.
+fn within_range(scaled: &[f32]) -> bool {
+    scaled
+        .iter()
+        .all(|v| v.is_finite() && v.abs() <= MAX_SCALED_INPUT)
 }
 
 /// The first affine layer's bias plus Σ shift·weights (in f64), so that the layer can take
