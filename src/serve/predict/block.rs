@@ -16,6 +16,8 @@ pub const BLOCK_ROWS: usize = 64;
 const TILE_ROWS: usize = 4;
 /// Outputs of one register tile (one 512-bit vector of f32).
 const TILE_OUTPUTS: usize = 16;
+/// Tiles of one row the sparse first layer sums side by side.
+const SPAN_TILES: usize = 4;
 
 /// Which features of a row are flagged (see [`super::Scratch::out_of_range`] and
 /// [`super::Scratch::unseen`]).
@@ -95,14 +97,11 @@ impl Block {
         if let Ok(any) = encoded {
             self.any[s] = any;
             self.slots += 1;
-            // The first layer's sparse input, as `shifted_affine` finds it.
             let x = &self.x[s * w..(s + 1) * w];
-            for (i, (&xi, &zi)) in x.iter().zip(&p.shift).enumerate() {
-                let d = xi - zi;
-                if d != 0.0 {
-                    self.nonzero.push((i, d));
-                }
-            }
+            crate::kernels::with_simd(
+                #[inline(always)]
+                || nonzero_inputs(x, &p.shift, &mut self.nonzero),
+            );
             self.nonzero_at.push(self.nonzero.len());
         }
         self.entries.push(encoded.map(|_| s));
@@ -224,28 +223,78 @@ fn run_block(
     }
 }
 
+/// Appends to `nonzero` the first layer's sparse input, as `shifted_affine` finds it: each
+/// (i, x − shift) that is not 0, in input order. Compares 32 inputs at a time into a bit
+/// mask (which vectorizes), then visits the set bits.
+#[inline(always)]
+fn nonzero_inputs(x: &[f32], shift: &[f32], nonzero: &mut Vec<(usize, f32)>) {
+    for (c, (xs, zs)) in x.chunks(32).zip(shift.chunks(32)).enumerate() {
+        let mut mask = 0_u32;
+        for (j, (&xi, &zi)) in xs.iter().zip(zs).enumerate() {
+            mask |= u32::from(xi - zi != 0.0) << j;
+        }
+        while mask != 0 {
+            let j = mask.trailing_zeros() as usize;
+            nonzero.push((c * 32 + j, xs[j] - zs[j]));
+            mask &= mask - 1;
+        }
+    }
+}
+
 /// `out = bias + Σ d·W[i]` over a row's (i, d) pairs in order: `shifted_affine`'s sums, with
-/// [`TILE_OUTPUTS`] outputs at a time kept in registers (any rest one by one).
+/// the outputs kept in registers, [`SPAN_TILES`] tiles of [`TILE_OUTPUTS`] at a time (any
+/// rest one tile at a time, then one by one).
 #[inline(always)]
 fn sparse_affine(inputs: &[(usize, f32)], weights: &[f32], bias: &[f32], out: &mut [f32]) {
     let outputs = bias.len();
-    let tiled = outputs - outputs % TILE_OUTPUTS;
-    for c in (0..tiled).step_by(TILE_OUTPUTS) {
-        let mut acc = [0.0_f32; TILE_OUTPUTS];
-        acc.copy_from_slice(&bias[c..c + TILE_OUTPUTS]);
-        for &(i, d) in inputs {
-            let w = &weights[i * outputs + c..i * outputs + c + TILE_OUTPUTS];
-            for (o, &wl) in acc.iter_mut().zip(w) {
-                *o += d * wl;
-            }
-        }
-        out[c..c + TILE_OUTPUTS].copy_from_slice(&acc);
+    let mut c = 0;
+    while c + SPAN_TILES * TILE_OUTPUTS <= outputs {
+        sparse_span::<SPAN_TILES>(inputs, weights, bias, out, c);
+        c += SPAN_TILES * TILE_OUTPUTS;
     }
-    for (j, o) in out.iter_mut().enumerate().skip(tiled) {
+    while c + TILE_OUTPUTS <= outputs {
+        sparse_span::<1>(inputs, weights, bias, out, c);
+        c += TILE_OUTPUTS;
+    }
+    for (j, o) in out.iter_mut().enumerate().skip(c) {
         *o = bias[j];
         for &(i, d) in inputs {
             *o += d * weights[i * outputs + j];
         }
+    }
+}
+
+/// Outputs `c..c + N·TILE_OUTPUTS` of [`sparse_affine`]: N independent sums in registers,
+/// so their additions overlap.
+#[inline(always)]
+fn sparse_span<const N: usize>(
+    inputs: &[(usize, f32)],
+    weights: &[f32],
+    bias: &[f32],
+    out: &mut [f32],
+    c: usize,
+) {
+    let (outputs, span) = (bias.len(), N * TILE_OUTPUTS);
+    let mut acc = [[0.0_f32; TILE_OUTPUTS]; N];
+    for (a, b) in acc
+        .iter_mut()
+        .zip(bias[c..c + span].chunks_exact(TILE_OUTPUTS))
+    {
+        a.copy_from_slice(b);
+    }
+    for &(i, d) in inputs {
+        let w = &weights[i * outputs + c..i * outputs + c + span];
+        for (a, w) in acc.iter_mut().zip(w.chunks_exact(TILE_OUTPUTS)) {
+            for (o, &wl) in a.iter_mut().zip(w) {
+                *o += d * wl;
+            }
+        }
+    }
+    for (a, o) in acc
+        .iter()
+        .zip(out[c..c + span].chunks_exact_mut(TILE_OUTPUTS))
+    {
+        o.copy_from_slice(a);
     }
 }
 
