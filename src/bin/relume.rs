@@ -960,7 +960,6 @@ fn print_ensemble(
     }
 }
 
-
 /// One line per column: what it became and why.
 fn print_columns(encoder: &relume::data::Encoder) {
     eprintln!("columns:");

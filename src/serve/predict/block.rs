@@ -307,7 +307,7 @@ fn affine_block(x: &[f32], weights: &[f32], bias: &[f32], out: &mut [f32]) {
     let outputs = bias.len();
     let rows = out.len() / outputs;
     let inputs = x.len() / rows.max(1);
-    let tiled = if outputs % TILE_OUTPUTS == 0 {
+    let tiled = if outputs.is_multiple_of(TILE_OUTPUTS) {
         rows - rows % TILE_ROWS
     } else {
         0
