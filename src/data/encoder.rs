@@ -406,9 +406,9 @@ pub type LevelMap = HashMap<String, Slot, BuildHasherDefault<Fnv1a>>;
 
 /// The 64-bit FNV-1a hash (Fowler, Noll & Vo; offset basis 0xcbf29ce484222325, prime
 /// 0x100000001b3, as published with the algorithm), for the short level texts looked up once
-/// per cell: several times faster than the default keyed hash on them. It is not built to
-/// resist chosen collisions, which matters little here: the keys are the model's own levels,
-/// and a row's text is only ever looked up among them.
+/// per cell: one multiply per byte and no key, in place of the default keyed hash. It is not
+/// built to resist chosen collisions, which matters little here: the keys are the model's own
+/// levels, and a row's text is only ever looked up among them.
 #[derive(Clone, Copy, Debug)]
 pub struct Fnv1a(u64);
 
