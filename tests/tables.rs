@@ -575,3 +575,19 @@ fn reading_in_chunks_gives_the_rows_of_reading_whole() {
     .unwrap_err();
     assert!(err.to_string().contains("no data rows"), "{err}");
 }
+
+#[test]
+fn level_lookups_hash_with_fnv1a_as_published() {
+    use std::hash::Hasher;
+    // Test vectors of the 64-bit FNV-1a hash from its authors' reference test suite
+    // (Fowler, Noll & Vo, test_fnv.c): "", "a" and "foobar".
+    for (text, want) in [
+        ("", 0xcbf2_9ce4_8422_2325_u64),
+        ("a", 0xaf63_dc4c_8601_ec8c),
+        ("foobar", 0x8594_4171_f739_67e8),
+    ] {
+        let mut h = relume::data::Fnv1a::default();
+        h.write(text.as_bytes());
+        assert_eq!(h.finish(), want, "{text:?}");
+    }
+}

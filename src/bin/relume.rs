@@ -960,11 +960,6 @@ fn print_ensemble(
     }
 }
 
-/// A prediction of an f32 network: the shortest text that reads back to the same f32.
-fn shortest_f32(value: f64) -> String {
-    (value as f32).to_string()
-}
-
 /// One line per column: what it became and why.
 fn print_columns(encoder: &relume::data::Encoder) {
     eprintln!("columns:");
@@ -1222,20 +1217,31 @@ fn predict_chunk(
     } else {
         None
     };
+    // Written straight into `text`: an ordinary row allocates nothing here.
+    use std::fmt::Write as _;
     for (r, row) in rows.iter().enumerate() {
-        let key_values: Vec<String> = if a.key.is_empty() {
-            vec![row.line.to_string()]
+        if a.key.is_empty() {
+            let _ = write!(text, "{}", row.line);
         } else {
-            a.key
-                .iter()
-                .map(|k| cell_text(table, k, r).map(|t| csv_field(&t)))
-                .collect::<Result<_, _>>()?
-        };
-        let issue = match &row.error {
+            for (i, k) in a.key.iter().enumerate() {
+                let sep = if i == 0 { "" } else { "," };
+                let _ = write!(text, "{sep}{}", csv_field(&cell_text(table, k, r)?));
+            }
+        }
+        // A prediction of an f32 network: the shortest text that reads back to the same f32.
+        for v in [row.value, row.lower, row.upper] {
+            let _ = match v {
+                Some(v) => write!(text, ",{}", v as f32),
+                None => write!(text, ","),
+            };
+        }
+        let _ = write!(text, ",{},", !row.out_of_range.is_empty());
+        match &row.error {
             Some(e) => {
                 counts.failed += 1;
-                e.clone()
+                text.push_str(&csv_field(e));
             }
+            None if row.out_of_range.is_empty() && row.unseen.is_empty() => {}
             None => {
                 let mut parts = Vec::new();
                 if !row.out_of_range.is_empty() {
@@ -1253,29 +1259,19 @@ fn predict_chunk(
                         row.unseen.join(" ")
                     ));
                 }
-                parts.join("; ")
+                text.push_str(&csv_field(&parts.join("; ")));
             }
-        };
-        let number = |v: Option<f64>| v.map_or(String::new(), shortest_f32);
-        let explained = attributions.as_ref().map_or(String::new(), |t| {
-            let parts = match &t.rows[r] {
-                Some(v) => v.iter().map(|x| format!(",{x}")).collect::<String>(),
-                None => ",".repeat(t.features.len()),
-            };
-            format!("{parts},{}", t.baseline)
-        });
-        let _ = std::fmt::Write::write_fmt(
-            text,
-            format_args!(
-                "{},{},{},{},{},{}{explained}\n",
-                key_values.join(","),
-                number(row.value),
-                number(row.lower),
-                number(row.upper),
-                !row.out_of_range.is_empty(),
-                csv_field(&issue)
-            ),
-        );
+        }
+        if let Some(t) = &attributions {
+            match &t.rows[r] {
+                Some(v) => v.iter().for_each(|x| {
+                    let _ = write!(text, ",{x}");
+                }),
+                None => text.push_str(&",".repeat(t.features.len())),
+            }
+            let _ = write!(text, ",{}", t.baseline);
+        }
+        text.push('\n');
     }
     Ok(())
 }

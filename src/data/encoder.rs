@@ -11,6 +11,7 @@ use crate::kernels::scalar::Scalar;
 use ndarray::Array2;
 use serde::{Deserialize, Serialize};
 use std::collections::HashMap;
+use std::hash::{BuildHasherDefault, Hasher};
 
 /// Levels seen in fewer rows than this are pooled into [`OTHER_LEVEL`]. Measured on the shared
 /// real tables (DEVELOPERS.md): 5 gave the best or near-best holdout RMSE of 2, 5 and 10.
@@ -243,7 +244,7 @@ impl FeatureEncoding {
     /// input: "at the training mean", which the caller's scaling turns into 0.
     pub fn encode_cell(
         &self,
-        levels: &HashMap<String, Slot>,
+        levels: &LevelMap,
         unseen: UnseenPolicy,
         cell: Cell<'_>,
         out: &mut [f64],
@@ -287,20 +288,20 @@ impl FeatureEncoding {
                     },
                     Cell::Number(_) => return Err(CellProblem::NotACategory),
                 };
-                match slot {
-                    Some(Slot::Level(i)) => out[i] = 1.0,
-                    Some(Slot::Pooled) => out[other] = 1.0,
+                outcome.on = match slot {
+                    Some(Slot::Level(i)) => Some(i),
+                    Some(Slot::Pooled) => Some(other),
                     None if unseen == UnseenPolicy::Error => {
                         return Err(CellProblem::UnseenCategory)
                     }
                     None => {
                         outcome.unseen = true;
-                        if pooled.is_some() {
-                            out[other] = 1.0;
-                        } else {
-                            out.fill(f64::NAN);
-                        }
+                        pooled.is_some().then_some(other)
                     }
+                };
+                match outcome.on {
+                    Some(i) => out[i] = 1.0,
+                    None => out.fill(f64::NAN),
                 }
             }
             FeatureEncoding::Date {
@@ -386,6 +387,9 @@ pub struct CellOutcome {
     pub unseen: bool,
     /// The value of a numeric or date cell, for the range check (None if filled or text).
     pub value: Option<f64>,
+    /// For a category: which of its inputs is 1 (None when they are all NaN, "at the training
+    /// mean").
+    pub on: Option<usize>,
 }
 
 /// Where a known category value goes.
@@ -397,11 +401,40 @@ pub enum Slot {
     Pooled,
 }
 
+/// The look-up of one category feature: level text → its input.
+pub type LevelMap = HashMap<String, Slot, BuildHasherDefault<Fnv1a>>;
+
+/// The 64-bit FNV-1a hash (Fowler, Noll & Vo; offset basis 0xcbf29ce484222325, prime
+/// 0x100000001b3, as published with the algorithm), for the short level texts looked up once
+/// per cell: one multiply per byte and no key, in place of the default keyed hash. It is not
+/// built to resist chosen collisions, which matters little here: the keys are the model's own
+/// levels, and a row's text is only ever looked up among them.
+#[derive(Clone, Copy, Debug)]
+pub struct Fnv1a(u64);
+
+impl Default for Fnv1a {
+    fn default() -> Self {
+        Fnv1a(0xcbf2_9ce4_8422_2325)
+    }
+}
+
+impl Hasher for Fnv1a {
+    fn write(&mut self, bytes: &[u8]) {
+        for &b in bytes {
+            self.0 = (self.0 ^ u64::from(b)).wrapping_mul(0x0000_0100_0000_01b3);
+        }
+    }
+
+    fn finish(&self) -> u64 {
+        self.0
+    }
+}
+
 /// Per feature, a lookup from category text to its input (empty for other features).
 #[derive(Clone, Debug, Default, PartialEq)]
 pub struct LevelIndex {
     /// One map per feature, in feature order.
-    pub maps: Vec<HashMap<String, Slot>>,
+    pub maps: Vec<LevelMap>,
 }
 
 impl LevelIndex {
@@ -417,7 +450,7 @@ impl LevelIndex {
                     .map(|(i, l)| (l.clone(), Slot::Level(i)))
                     .chain(pooled.iter().flatten().map(|l| (l.clone(), Slot::Pooled)))
                     .collect(),
-                _ => HashMap::new(),
+                _ => LevelMap::default(),
             })
             .collect();
         LevelIndex { maps }

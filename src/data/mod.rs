@@ -14,9 +14,9 @@ pub use build::{MISSING_MARKERS, STRAY_SHARE, TYPING_ROWS};
 pub use dates::{civil_from_days, date_parts, parse_iso_date, DateParts};
 
 pub use encoder::{
-    Cell, CellOutcome, CellProblem, ColumnNote, Encoder, EncoderSpec, FeatureEncoding, Impute,
-    LevelIndex, Slot, TargetEncoding, UnseenPolicy, DEFAULT_MAX_LEVELS, DEFAULT_MIN_LEVEL_ROWS,
-    MISSING_LEVEL, OTHER_LEVEL,
+    Cell, CellOutcome, CellProblem, ColumnNote, Encoder, EncoderSpec, FeatureEncoding, Fnv1a,
+    Impute, LevelIndex, LevelMap, Slot, TargetEncoding, UnseenPolicy, DEFAULT_MAX_LEVELS,
+    DEFAULT_MIN_LEVEL_ROWS, MISSING_LEVEL, OTHER_LEVEL,
 };
 pub use split::{holdout, kfold, stratified_kfold};
 

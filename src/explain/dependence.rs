@@ -84,7 +84,7 @@ fn grid_of(feature: &FeatureEncoding, points: usize) -> (Vec<GridValue>, Vec<Vec
             let values: Vec<f64> = (0..count)
                 .map(|k| min + (max - min) * k as f64 / (count - 1).max(1) as f64)
                 .collect();
-            let index = std::collections::HashMap::new();
+            let index = crate::data::LevelMap::default();
             // A value that does not encode (a date beyond the calendar's reach in a damaged
             // model file) is left out of the grid rather than stopping the explanation.
             let (values, slots): (Vec<f64>, Vec<Vec<f64>>) = values

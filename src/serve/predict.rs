@@ -11,6 +11,9 @@ use crate::serve::model::{Model, ModelError};
 use crate::serve::path::{self, Layout, PathScratch};
 use std::path::Path;
 
+mod block;
+pub use block::BLOCK_ROWS;
+
 /// Fraction of a feature's training range beyond which a value counts as extrapolation.
 pub const DEFAULT_MARGIN: f64 = 0.05;
 
@@ -106,6 +109,11 @@ pub struct Predictor {
     /// subtracted before the first layer, so that a level that is off contributes exactly
     /// nothing and is skipped.
     shift: Vec<f32>,
+    /// Per encoded input, the standardized value of 1 for one-hot inputs (0 for the rest).
+    on: Vec<f32>,
+    /// Per feature, whether it is one-hot with every standardized 0 and 1 within range: its
+    /// inputs are then copied from `shift` and `on`.
+    one_hot_ready: Vec<bool>,
     /// Per member, its first affine layer's bias with the shift folded in (None when the
     /// network does not start with an affine layer).
     first_bias: Vec<Option<Vec<f32>>>,
@@ -131,7 +139,17 @@ impl Predictor {
             .max(model.encoder.width());
         let input = model.encoder.width();
         let layouts = members.iter().map(|m| Layout::new(m, input)).collect();
-        let shift = one_hot_shift(model);
+        let (shift, on) = (one_hot_scaled(model, 0.0), one_hot_scaled(model, 1.0));
+        let mut k = 0;
+        let one_hot_ready = (model.encoder.features.iter())
+            .map(|f| {
+                let inputs = k..k + f.width();
+                k = inputs.end;
+                matches!(f, FeatureEncoding::Category { .. })
+                    && within_range(&shift[inputs.clone()])
+                    && within_range(&on[inputs])
+            })
+            .collect();
         let first_bias = members.iter().map(|m| folded_bias(m, &shift)).collect();
         let mut predictor = Predictor {
             encoder: model.encoder.clone(),
@@ -145,6 +163,8 @@ impl Predictor {
             layouts,
             baseline: 0.0,
             shift,
+            on,
+            one_hot_ready,
             first_bias,
         };
         let mut scratch = predictor.scratch();
@@ -254,13 +274,6 @@ impl Predictor {
         row: &[Cell<'_>],
         scratch: &mut Scratch,
     ) -> Result<RowPrediction, RowError> {
-        let features = &self.encoder.features;
-        if row.len() != features.len() {
-            return Err(RowError {
-                feature: row.len(),
-                kind: RowErrorKind::WrongLength,
-            });
-        }
         let Scratch {
             a,
             raw,
@@ -268,6 +281,30 @@ impl Predictor {
             unseen,
             ..
         } = scratch;
+        let k = self.encoder.width();
+        let flags = self.encode_row(row, raw, out_of_range, unseen, &mut a[..k])?;
+        let scaled = self.ensemble(scratch, k);
+        self.finish(scaled, flags)
+    }
+
+    /// Encodes and standardizes one row into `a` (one value per encoded input), noting per
+    /// feature whether it is out of range or an unseen category; returns whether any is
+    /// (extrapolated, unseen). `raw` holds the widest feature's unscaled inputs.
+    fn encode_row(
+        &self,
+        row: &[Cell<'_>],
+        raw: &mut [f64],
+        out_of_range: &mut [bool],
+        unseen: &mut [bool],
+        a: &mut [f32],
+    ) -> Result<(bool, bool), RowError> {
+        let features = &self.encoder.features;
+        if row.len() != features.len() {
+            return Err(RowError {
+                feature: row.len(),
+                kind: RowErrorKind::WrongLength,
+            });
+        }
         let (mut extrapolated, mut any_unseen) = (false, false);
         let mut k = 0;
         for (i, (feature, cell)) in features.iter().zip(row).enumerate() {
@@ -286,32 +323,51 @@ impl Predictor {
                 _ => false,
             };
             extrapolated |= out_of_range[i];
-            for (j, &v) in slots.iter().enumerate() {
-                // NaN marks "at the training mean" (an unseen category without a pooled level).
-                a[k + j] = if v.is_nan() {
-                    0.0
-                } else {
-                    ((v - self.inputs.mean[k + j]) / self.inputs.sd[k + j]) as f32
-                };
-            }
-            // A scaled value beyond f32 (or one the network cannot carry) would give a
-            // meaningless number: refuse the row instead.
-            if a[k..k + w]
-                .iter()
-                .any(|v| !v.is_finite() || v.abs() > MAX_SCALED_INPUT)
-            {
-                return Err(RowError {
-                    feature: i,
-                    kind: RowErrorKind::Overflow,
-                });
+            let scaled = &mut a[k..k + w];
+            match outcome.on {
+                // One-hot inputs with one level on: every scaled value was computed in `new`
+                // by the formula below (same bits) and found within range there.
+                Some(on) if self.one_hot_ready[i] => {
+                    scaled.copy_from_slice(&self.shift[k..k + w]);
+                    scaled[on] = self.on[k + on];
+                }
+                _ => {
+                    for (j, (x, &v)) in scaled.iter_mut().zip(&*slots).enumerate() {
+                        // NaN marks "at the training mean" (an unseen category without a
+                        // pooled level).
+                        *x = if v.is_nan() {
+                            0.0
+                        } else {
+                            ((v - self.inputs.mean[k + j]) / self.inputs.sd[k + j]) as f32
+                        };
+                    }
+                    // A scaled value beyond f32 (or one the network cannot carry) would give
+                    // a meaningless number: refuse the row instead.
+                    if !within_range(scaled) {
+                        return Err(RowError {
+                            feature: i,
+                            kind: RowErrorKind::Overflow,
+                        });
+                    }
+                }
             }
             k += w;
         }
-        let scaled = self.ensemble(scratch, k);
+        Ok((extrapolated, any_unseen))
+    }
+
+    /// A row's prediction from the ensemble's output `scaled` (before decoding) and the
+    /// row's (extrapolated, unseen) flags: decodes it and its interval, or refuses a
+    /// non-finite output.
+    fn finish(
+        &self,
+        scaled: f64,
+        (extrapolated, unseen): (bool, bool),
+    ) -> Result<RowPrediction, RowError> {
         if !scaled.is_finite() {
             // No single input to blame: the index past the last names the row as a whole.
             return Err(RowError {
-                feature: features.len(),
+                feature: self.encoder.features.len(),
                 kind: RowErrorKind::Overflow,
             });
         }
@@ -330,7 +386,7 @@ impl Predictor {
             lower,
             upper,
             extrapolated,
-            unseen: any_unseen,
+            unseen,
         })
     }
 
@@ -367,6 +423,12 @@ impl Predictor {
             };
             sum += f64::from(value);
         }
+        self.average(sum)
+    }
+
+    /// The members' average on the network's target scale, from the sum of their outputs
+    /// (added in member order, in f64).
+    fn average(&self, sum: f64) -> f64 {
         let out = sum / self.members.len() as f64;
         out * self.target.sd[0] + self.target.mean[0]
     }
@@ -458,6 +520,9 @@ impl Predictor {
 
     /// Predicts every row of a table (columns found by name; extra columns ignored). Each row
     /// gets its prediction or its error message, and the names of extrapolated features.
+    ///
+    /// Rows go through the network [`BLOCK_ROWS`] at a time (each layer's weights are used for
+    /// the whole block); every row gets exactly the bits [`Predictor::predict_row`] gives it.
     pub fn predict_table(&self, table: &Table) -> Result<Vec<TableRow>, DataError> {
         let columns: Vec<&Column> = self
             .encoder
@@ -465,48 +530,54 @@ impl Predictor {
             .iter()
             .map(|f| table.column(f.name()))
             .collect::<Result<_, _>>()?;
-        let mut scratch = self.scratch();
+        let mut block = block::Block::new(self);
         let mut row: Vec<Cell<'_>> = Vec::with_capacity(columns.len());
         let mut out = Vec::with_capacity(table.rows());
-        for r in 0..table.rows() {
-            row.clear();
-            row.extend(columns.iter().map(|c| c.cell(r)));
-            out.push(match self.predict_row(&row, &mut scratch) {
-                Ok(p) => TableRow {
-                    line: table.lines[r],
-                    value: Some(p.value),
-                    lower: p.lower,
-                    upper: p.upper,
-                    out_of_range: self
-                        .encoder
-                        .features
-                        .iter()
-                        .zip(scratch.out_of_range())
-                        .filter(|(_, &o)| o)
-                        .map(|(f, _)| f.name().to_string())
-                        .collect(),
-                    unseen: self
-                        .encoder
-                        .features
-                        .iter()
-                        .zip(scratch.unseen())
-                        .filter(|(_, &u)| u)
-                        .map(|(f, _)| f.name().to_string())
-                        .collect(),
-                    error: None,
-                },
-                Err(e) => TableRow {
-                    line: table.lines[r],
-                    value: None,
-                    lower: None,
-                    upper: None,
-                    out_of_range: Vec::new(),
-                    unseen: Vec::new(),
-                    error: Some(self.explain(&e)),
-                },
-            });
+        for start in (0..table.rows()).step_by(BLOCK_ROWS) {
+            let end = (start + BLOCK_ROWS).min(table.rows());
+            block.clear();
+            for r in start..end {
+                row.clear();
+                row.extend(columns.iter().map(|c| c.cell(r)));
+                block.encode(self, &row);
+            }
+            block.run(self);
+            for (i, r) in (start..end).enumerate() {
+                let line = table.lines[r];
+                out.push(match block.result(self, i) {
+                    Ok((p, flags)) => TableRow {
+                        line,
+                        value: Some(p.value),
+                        lower: p.lower,
+                        upper: p.upper,
+                        out_of_range: self.flagged_names(flags.out_of_range),
+                        unseen: self.flagged_names(flags.unseen),
+                        error: None,
+                    },
+                    Err(e) => TableRow {
+                        line,
+                        value: None,
+                        lower: None,
+                        upper: None,
+                        out_of_range: Vec::new(),
+                        unseen: Vec::new(),
+                        error: Some(self.explain(&e)),
+                    },
+                });
+            }
         }
         Ok(out)
+    }
+
+    /// The names of the features whose flag is set.
+    fn flagged_names(&self, flags: &[bool]) -> Vec<String> {
+        self.encoder
+            .features
+            .iter()
+            .zip(flags)
+            .filter(|(_, &f)| f)
+            .map(|(f, _)| f.name().to_string())
+            .collect()
     }
 }
 
@@ -606,25 +677,29 @@ pub struct TableRow {
     pub error: Option<String>,
 }
 
-/// out = x·W + bias for one row (W is inputs × outputs, row-major): a dot product with eight
-/// partial sums for a single output, else one scaled row of W added per input.
-#[inline(always)]
-/// The standardized value of 0 for every one-hot input of `model` (computed exactly as a
-/// row's inputs are, so an input that is off gives exactly this), 0 for every other input.
-fn one_hot_shift(model: &Model) -> Vec<f32> {
-    let mut shift = Vec::with_capacity(model.encoder.width());
+/// The standardized value of `v` for every one-hot input of `model` (computed exactly as a
+/// row's inputs are, so an input that is `v` gives exactly this), 0 for every other input.
+fn one_hot_scaled(model: &Model, v: f64) -> Vec<f32> {
+    let mut scaled = Vec::with_capacity(model.encoder.width());
     for feature in &model.encoder.features {
         let one_hot = matches!(feature, FeatureEncoding::Category { .. });
         for _ in 0..feature.width() {
-            let k = shift.len();
-            shift.push(if one_hot {
-                ((0.0 - model.inputs.mean[k]) / model.inputs.sd[k]) as f32
+            let k = scaled.len();
+            scaled.push(if one_hot {
+                ((v - model.inputs.mean[k]) / model.inputs.sd[k]) as f32
             } else {
                 0.0
             });
         }
     }
-    shift
+    scaled
+}
+
+/// Whether every standardized input is finite and at most [`MAX_SCALED_INPUT`] in size.
+fn within_range(scaled: &[f32]) -> bool {
+    scaled
+        .iter()
+        .all(|v| v.is_finite() && v.abs() <= MAX_SCALED_INPUT)
 }
 
 /// The first affine layer's bias plus Σ shift·weights (in f64), so that the layer can take
@@ -658,6 +733,7 @@ fn folded_bias(steps: &[Step], shift: &[f32]) -> Option<Vec<f32>> {
 
 /// `out = bias + Σ (x − shift)·weights` over the inputs where x − shift is not 0 (one-hot
 /// levels that are off are skipped).
+#[inline(always)]
 fn shifted_affine(x: &[f32], shift: &[f32], weights: &[f32], bias: &[f32], out: &mut [f32]) {
     out.copy_from_slice(bias);
     let width = out.len();
@@ -669,6 +745,10 @@ fn shifted_affine(x: &[f32], shift: &[f32], weights: &[f32], bias: &[f32], out: 
     }
 }
 
+/// out = x·W + bias for one row (W is inputs × outputs, row-major): a dot product with eight
+/// partial sums for a single output, else one scaled row of W added per input. Inlined, so
+/// that under `with_simd` it is compiled for the instruction set picked.
+#[inline(always)]
 fn affine_row(x: &[f32], weights: &[f32], bias: &[f32], out: &mut [f32]) {
     if out.len() == 1 {
         let mut acc = [0.0_f32; 8];
