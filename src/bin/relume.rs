@@ -1104,30 +1104,78 @@ fn write_failure(path: Option<&Path>, e: std::io::Error) -> Failure {
     }
 }
 
-/// Reads the table of `args` in chunks of [`CHUNK_ROWS`] rows (the model's text columns read
-/// as text) and hands each to `each`; returns the rows read.
+/// Reads the table in chunks of [`CHUNK_ROWS`] rows (the model's text columns read as text)
+/// and hands each to `each` in order, while the next chunk is read on a second thread; a chunk
+/// is handed over only when the one before has been taken, so memory stays bounded (about
+/// three chunks). Returns the number of rows read. A reading error is reported after the
+/// chunks before it were handled; an error from `each` stops the reading.
 fn for_each_chunk(
     args: &TableArgs,
     model_text: &[String],
-    each: impl FnMut(Table) -> Result<(), Failure>,
+    mut each: impl FnMut(&Table) -> Result<(), Failure>,
 ) -> Result<usize, Failure> {
-    let options = read_options(args, model_text);
-    if args.data == "-" {
-        Table::read_chunks(std::io::stdin().lock(), "stdin", &options, CHUNK_ROWS, each)
-    } else {
-        let path = Path::new(&args.data);
-        let file = std::fs::File::open(path).map_err(|e| DataError::Io {
-            source_name: args.data.clone(),
-            message: format!("cannot open: {e}"),
-        })?;
-        Table::read_chunks(
-            file,
-            &path.display().to_string(),
-            &options,
-            CHUNK_ROWS,
-            each,
-        )
+    /// Why the reading thread stopped early.
+    enum Stop {
+        Data(DataError),
+        /// The handling side stopped (its own error is the one to report).
+        Dropped,
     }
+    impl From<DataError> for Stop {
+        fn from(e: DataError) -> Self {
+            Stop::Data(e)
+        }
+    }
+    let options = read_options(args, model_text);
+    let (send, receive) = std::sync::mpsc::sync_channel::<Table>(0);
+    // Handled chunks go back to the reading thread to be freed where they were allocated
+    // (freeing another thread's allocations costs the allocator more).
+    let (give_back, returned) = std::sync::mpsc::channel::<Table>();
+    std::thread::scope(|scope| {
+        let reader = scope.spawn(move || -> Result<usize, Stop> {
+            let forward = |table: Table| {
+                returned.try_iter().for_each(drop);
+                send.send(table).map_err(|_| Stop::Dropped)
+            };
+            if args.data == "-" {
+                Table::read_chunks(
+                    std::io::stdin().lock(),
+                    "stdin",
+                    &options,
+                    CHUNK_ROWS,
+                    forward,
+                )
+            } else {
+                let path = Path::new(&args.data);
+                let file = std::fs::File::open(path).map_err(|e| DataError::Io {
+                    source_name: args.data.clone(),
+                    message: format!("cannot open: {e}"),
+                })?;
+                let name = path.display().to_string();
+                Table::read_chunks(file, &name, &options, CHUNK_ROWS, forward)
+            }
+        });
+        let mut handled = Ok(());
+        for table in receive.iter() {
+            handled = each(&table);
+            let _ = give_back.send(table);
+            if handled.is_err() {
+                break;
+            }
+        }
+        // Dropping the receiver makes the reader's next send fail, so it stops.
+        drop(receive);
+        let read = reader
+            .join()
+            .map_err(|_| Failure::Internal("the reading thread panicked".to_string()))?;
+        handled?;
+        match read {
+            Ok(rows) => Ok(rows),
+            Err(Stop::Data(e)) => Err(e.into()),
+            Err(Stop::Dropped) => Err(Failure::Internal(
+                "the reading thread stopped without a reason".to_string(),
+            )),
+        }
+    })
 }
 
 /// Rows `predict` flagged or could not predict.
@@ -1166,7 +1214,7 @@ fn predict(a: PredictArgs) -> Result<(), Failure> {
     let mut text = String::new();
     let written = for_each_chunk(&a.table, &predictor.encoder().text_columns(), |table| {
         text.clear();
-        predict_chunk(&predictor, &table, &a, &mut counts, &mut text)?;
+        predict_chunk(&predictor, table, &a, &mut counts, &mut text)?;
         sink.write(&text)
     });
     let rows = match written {
@@ -1337,7 +1385,7 @@ fn evaluate(a: EvaluateArgs) -> Result<(), Failure> {
                 table.source
             )));
         };
-        for (r, row) in predictor.predict_table(&table)?.iter().enumerate() {
+        for (r, row) in predictor.predict_table(table)?.iter().enumerate() {
             match row.value {
                 Some(v) if !truth[r].is_nan() => {
                     predictions.push(v);
