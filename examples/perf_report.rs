@@ -405,6 +405,17 @@ fn row_predict(rounds: usize) {
     line("row_predict", &r, 0, 1);
 }
 
+/// The activations the perf report times against ReLU.
+const TIMED_ACTIVATIONS: [Activation; 7] = [
+    Activation::Gelu,
+    Activation::ELU,
+    Activation::Selu,
+    Activation::SILU,
+    Activation::Tanh,
+    Activation::Sigmoid,
+    Activation::SOFTPLUS,
+];
+
 /// The ReLU forward pass against a memcpy of the same buffer, then each smooth activation's
 /// forward pass against ReLU's, per element on 1024×1024 f32.
 fn activations(rounds: usize) {
@@ -428,15 +439,7 @@ fn activations(rounds: usize) {
         }],
     );
     line("relu_fwd", &r, 0, 1);
-    for act in [
-        Activation::Gelu,
-        Activation::ELU,
-        Activation::Selu,
-        Activation::SILU,
-        Activation::Tanh,
-        Activation::Sigmoid,
-        Activation::SOFTPLUS,
-    ] {
+    for act in TIMED_ACTIVATIONS {
         let mut layer = Pointwise::<f32>::new(1024, act).expect("layer");
         let r = interleaved(
             rounds,
@@ -459,15 +462,7 @@ fn activations(rounds: usize) {
     const L1_ELEMENTS: usize = 4096;
     let small = &x.as_slice().expect("contiguous")[..L1_ELEMENTS];
     let (mut relu_out, mut out) = (vec![0.0_f32; L1_ELEMENTS], vec![0.0_f32; L1_ELEMENTS]);
-    for act in [
-        Activation::Gelu,
-        Activation::ELU,
-        Activation::Selu,
-        Activation::SILU,
-        Activation::Tanh,
-        Activation::Sigmoid,
-        Activation::SOFTPLUS,
-    ] {
+    for act in TIMED_ACTIVATIONS {
         let r = interleaved(
             rounds,
             100,
