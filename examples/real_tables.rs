@@ -53,6 +53,13 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         let seconds = started.elapsed().as_secs_f64();
         let truth = column(&table, target);
         let rows = Predictor::new(&model).predict_table(&table.select(&test))?;
+        let failed: Vec<&String> = rows.iter().filter_map(|r| r.error.as_ref()).collect();
+        if let Some(first) = failed.first() {
+            eprintln!(
+                "{file}: {} test rows not predicted; first: {first}",
+                failed.len()
+            );
+        }
         let model_rmse = rmse(
             test.iter()
                 .zip(&rows)

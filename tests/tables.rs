@@ -226,6 +226,81 @@ fn empty_numeric_cells_are_an_error_naming_the_option_or_imputed_with_a_flag() {
 }
 
 #[test]
+fn with_imputation_asked_an_empty_cell_met_only_when_predicting_is_filled() {
+    // Column a and the date d have no empty cell in training; with --impute the model still
+    // records their fill values (no was-missing input), so a new row with them empty is
+    // predicted instead of refused. Found on a real table whose test split had the only
+    // empty cell of one column.
+    let mut s = String::from("a,d,y\n");
+    for r in 0..40 {
+        s += &format!("{},2020-01-{:02},{}\n", r % 7, 1 + r % 28, r % 5);
+    }
+    let table = read(&s).unwrap();
+    let asked = EncoderSpec {
+        impute: Some(Impute::Median),
+        ..spec("y")
+    };
+    let (model, _) = Model::fit(
+        &table,
+        &asked,
+        &relume::Recipe {
+            members: 1,
+            hidden: vec![4],
+            ..relume::Recipe::default()
+        },
+        MonitorConfig::default(),
+    )
+    .unwrap();
+    assert_eq!(
+        model.encoder.input_names().len(),
+        1 + 5,
+        "no was-missing inputs"
+    );
+    let fills: Vec<Option<f64>> = model
+        .encoder
+        .features
+        .iter()
+        .map(|f| match f {
+            FeatureEncoding::Number { fill, .. } | FeatureEncoding::Date { fill, .. } => *fill,
+            FeatureEncoding::Category { .. } => None,
+        })
+        .collect();
+    // Median of a (0..6, each about as often) is 3; the date's fill is its median day.
+    assert_eq!(fills[0], Some(3.0));
+    assert!(fills[1].is_some());
+    let predictor = Predictor::new(&model);
+    let mut scratch = predictor.scratch();
+    let filled = predictor
+        .predict_row(&[Cell::Missing, Cell::Text("2020-01-14")], &mut scratch)
+        .unwrap();
+    let at_fill = predictor
+        .predict_row(&[Cell::Number(3.0), Cell::Text("2020-01-14")], &mut scratch)
+        .unwrap();
+    assert_eq!(filled.value, at_fill.value);
+    assert!(predictor
+        .predict_row(&[Cell::Number(3.0), Cell::Missing], &mut scratch)
+        .is_ok());
+    // Without imputation the same empty cell stays an error naming the column.
+    let (plain, _) = Model::fit(
+        &table,
+        &spec("y"),
+        &relume::Recipe {
+            members: 1,
+            hidden: vec![4],
+            ..relume::Recipe::default()
+        },
+        MonitorConfig::default(),
+    )
+    .unwrap();
+    let p = Predictor::new(&plain);
+    let mut scratch = p.scratch();
+    let err = p
+        .predict_row(&[Cell::Missing, Cell::Text("2020-01-14")], &mut scratch)
+        .unwrap_err();
+    assert!(p.explain(&err).contains("'a'"), "{}", p.explain(&err));
+}
+
+#[test]
 fn iso_dates_match_a_reference_date_library() {
     // Reference: the chrono crate (proleptic Gregorian calendar, ISO weekdays).
     use chrono::{Datelike, NaiveDate};

@@ -806,18 +806,23 @@ fn fit_number(
             warning: None,
         });
     }
+    // With imputation asked for, every column gets its fill value, so that an empty cell met
+    // only when predicting is filled too; the was-missing input only where training saw one.
     let impute = match (spec.impute, empty.first()) {
-        (_, None) => None,
-        (Some(how), Some(_)) => Some(how),
         (None, Some(&r)) => return Err(missing_error(table, r, name, empty.len())),
+        (how, _) => how,
     };
     seen.sort_by(f64::total_cmp);
     let fill = impute.map(|how| profile::fill_value(&seen, how));
     let what = match fill {
-        Some(v) => format!(
+        Some(v) if !empty.is_empty() => format!(
             "number, range [{min}, {max}]; {} empty cells filled with {} {v} (+ a was-missing \
              input)",
             empty.len(),
+            impute_name(impute)
+        ),
+        Some(v) => format!(
+            "number, range [{min}, {max}]; an empty cell when predicting is filled with {} {v}",
             impute_name(impute)
         ),
         None => format!("number, range [{min}, {max}]"),
@@ -828,7 +833,7 @@ fn fit_number(
             fill,
             min,
             max,
-            missing_flag: fill.is_some(),
+            missing_flag: !empty.is_empty(),
         },
         what,
         warning: None,
@@ -953,10 +958,11 @@ fn fit_date(
             warning: None,
         });
     }
+    // With imputation asked for, every column gets its fill value, so that an empty cell met
+    // only when predicting is filled too; the was-missing input only where training saw one.
     let impute = match (spec.impute, empty.first()) {
-        (_, None) => None,
-        (Some(how), Some(_)) => Some(how),
         (None, Some(&r)) => return Err(missing_error(table, r, name, empty.len())),
+        (how, _) => how,
     };
     days.sort_by(f64::total_cmp);
     let with_time = (0..values.len()).any(|r| parsed(r).is_some_and(|p| p.has_time));
@@ -968,7 +974,7 @@ fn fit_date(
             fill,
             min,
             max,
-            missing_flag: fill.is_some(),
+            missing_flag: !empty.is_empty(),
             with_time,
         },
         what: format!(
@@ -978,13 +984,10 @@ fn fit_date(
             } else {
                 ""
             },
-            if fill.is_some() {
-                format!(
-                    "; {} empty cells filled (+ a was-missing input)",
-                    empty.len()
-                )
-            } else {
-                String::new()
+            match (fill.is_some(), empty.len()) {
+                (false, _) => String::new(),
+                (true, 0) => "; an empty cell when predicting is filled".to_string(),
+                (true, n) => format!("; {n} empty cells filled (+ a was-missing input)"),
             }
         ),
         warning: None,
