@@ -227,13 +227,14 @@ fn empty_numeric_cells_are_an_error_naming_the_option_or_imputed_with_a_flag() {
 
 #[test]
 fn with_imputation_asked_an_empty_cell_met_only_when_predicting_is_filled() {
-    // Column a and the date d have no empty cell in training; with --impute the model still
-    // records their fill values (no was-missing input), so a new row with them empty is
-    // predicted instead of refused. Found on a real table whose test split had the only
+    // Column a, the date d and the category c have no empty cell in training; with --impute
+    // the model still records their fill values (no was-missing input; for c its most
+    // frequent level), so a new row with them empty is predicted instead of refused. Found on a real table whose test split had the only
     // empty cell of one column.
-    let mut s = String::from("a,d,y\n");
+    let mut s = String::from("a,d,c,y\n");
     for r in 0..40 {
-        s += &format!("{},2020-01-{:02},{}\n", r % 7, 1 + r % 28, r % 5);
+        let c = ["north", "south", "south", "east"][r % 4];
+        s += &format!("{},2020-01-{:02},{c},{}\n", r % 7, 1 + r % 28, r % 5);
     }
     let table = read(&s).unwrap();
     let asked = EncoderSpec {
@@ -253,7 +254,7 @@ fn with_imputation_asked_an_empty_cell_met_only_when_predicting_is_filled() {
     .unwrap();
     assert_eq!(
         model.encoder.input_names().len(),
-        1 + 5,
+        1 + 5 + 3,
         "no was-missing inputs"
     );
     let fills: Vec<Option<f64>> = model
@@ -265,20 +266,32 @@ fn with_imputation_asked_an_empty_cell_met_only_when_predicting_is_filled() {
             FeatureEncoding::Category { .. } => None,
         })
         .collect();
+    let category_fill = match &model.encoder.features[2] {
+        FeatureEncoding::Category { fill, .. } => fill.clone(),
+        _ => None,
+    };
+    assert_eq!(
+        category_fill.as_deref(),
+        Some("south"),
+        "the most frequent level"
+    );
     // Median of a (0..6, each about as often) is 3; the date's fill is its median day.
     assert_eq!(fills[0], Some(3.0));
     assert!(fills[1].is_some());
     let predictor = Predictor::new(&model);
     let mut scratch = predictor.scratch();
+    let day = Cell::Text("2020-01-14");
+    let (south, north) = (Cell::Text("south"), Cell::Text("north"));
     let filled = predictor
-        .predict_row(&[Cell::Missing, Cell::Text("2020-01-14")], &mut scratch)
+        .predict_row(&[Cell::Missing, day, Cell::Missing], &mut scratch)
         .unwrap();
     let at_fill = predictor
-        .predict_row(&[Cell::Number(3.0), Cell::Text("2020-01-14")], &mut scratch)
+        .predict_row(&[Cell::Number(3.0), day, south], &mut scratch)
         .unwrap();
     assert_eq!(filled.value, at_fill.value);
+    assert!(!filled.unseen);
     assert!(predictor
-        .predict_row(&[Cell::Number(3.0), Cell::Missing], &mut scratch)
+        .predict_row(&[Cell::Number(3.0), Cell::Missing, north], &mut scratch)
         .is_ok());
     // Without imputation the same empty cell stays an error naming the column.
     let (plain, _) = Model::fit(
@@ -295,7 +308,7 @@ fn with_imputation_asked_an_empty_cell_met_only_when_predicting_is_filled() {
     let p = Predictor::new(&plain);
     let mut scratch = p.scratch();
     let err = p
-        .predict_row(&[Cell::Missing, Cell::Text("2020-01-14")], &mut scratch)
+        .predict_row(&[Cell::Missing, day, south], &mut scratch)
         .unwrap_err();
     assert!(p.explain(&err).contains("'a'"), "{}", p.explain(&err));
 }

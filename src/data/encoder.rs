@@ -281,7 +281,8 @@ impl FeatureEncoding {
                 let slot = match cell {
                     Cell::Text(t) => levels.get(t).copied(),
                     Cell::Missing if *missing_level => Some(Slot::Level(missing)),
-                    // No empty cell was seen in training: an error, not a guess.
+                    // No empty cell was seen in training: the fill level when imputation was
+                    // asked for, else an error, not a guess.
                     Cell::Missing => match fill {
                         Some(f) => levels.get(f.as_str()).copied(),
                         None => return Err(CellProblem::Missing),
@@ -918,6 +919,20 @@ fn fit_text(
     if profile.missing > 0 {
         what += &format!(", {} empty cells as {MISSING_LEVEL}", profile.missing);
     }
+    // With imputation asked for and no empty cell in the table, an empty cell met when
+    // predicting takes the most frequent kept level (ties: the first by name).
+    let fill = if spec.impute.is_some() && profile.missing == 0 {
+        split
+            .kept
+            .iter()
+            .max_by(|a, b| profile.counts[*a].cmp(&profile.counts[*b]).then(b.cmp(a)))
+            .cloned()
+    } else {
+        None
+    };
+    if let Some(level) = &fill {
+        what += &format!(", an empty cell when predicting taken as '{level}'");
+    }
     if profile
         .counts
         .keys()
@@ -929,7 +944,7 @@ fn fit_text(
         encoding: FeatureEncoding::Category {
             name: name.to_string(),
             levels: split.kept,
-            fill: None,
+            fill,
             pooled: (!split.pooled.is_empty()).then_some(split.pooled),
             missing_level: profile.missing > 0,
         },
