@@ -2,16 +2,20 @@
 //!
 //! Train small rectifier-family neural regressors on tabular data, on the CPU, in pure Rust.
 //!
-//! The pieces, bottom up:
-//! - [`Scalar`]: `f32` for training, `f64` for gradient checks.
-//! - [`Activation`]: ReLU and its relatives (leaky, PReLU, randomized leaky, ELU, SELU, CELU,
-//!   GELU, SiLU, Mish, softplus, capped) and the tanh / sigmoid baselines.
-//! - [`Init`]: He, Glorot, LeCun, orthogonal and constant initializers, always seeded.
-//! - [`layer`]: the [`Layer`] trait with affine, pointwise activation, PReLU and dropout layers.
-//! - [`Network`] and [`NetworkPlan`]: a stack of layers with flat parameter and gradient views.
-//! - [`Loss`]: MSE, MAE, Huber and quantile.
-//! - [`gradcheck`]: finite-difference verification of every gradient.
-//! - [`optim`]: optimizers over the flat parameter vector.
+//! The modules follow the stages a table goes through:
+//! - [`kernels`]: the number type ([`Scalar`]: `f32` for training, `f64` for checks), the matrix
+//!   product and the SIMD and thread dispatch.
+//! - [`nn`]: [`Activation`] (ReLU and its relatives, tanh and sigmoid), [`Init`] (He, Glorot,
+//!   LeCun, ...), layers ([`Layer`]), [`Network`] and [`NetworkPlan`], [`Loss`], and
+//!   [`check_gradients`] (finite differences).
+//! - [`data`]: CSV into a [`Table`], column typing, dates, the [`Encoder`] and splits.
+//! - [`fit`]: optimizers, penalties, schedules, the training loop ([`train`]), diagnostics
+//!   ([`Monitor`]), scaling, the [`Recipe`] and seed ensembles.
+//! - [`serve`]: the versioned [`Model`] file and the [`Predictor`] (ensembles, intervals,
+//!   extrapolation flags, attributions).
+//! - [`explain`](mod@explain): permutation importance, partial dependence and per-row attributions.
+//! - [`sweep`]: paired activation comparisons, the cost of an activation, statistics, shards.
+//! - [`report`]: run reports and SVG charts.
 //!
 //! ```
 //! use relume::{Activation, Loss, NetworkPlan, Pass};

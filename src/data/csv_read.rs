@@ -19,9 +19,9 @@ impl Table {
 
     /// Reads CSV with a header row from any reader, row by row: the raw text is never held
     /// whole, only the parsed cells. A column's type comes from the non-empty cells of its first
-    /// [`TYPING_ROWS`] rows (the typing sample): numeric if every one of them is a number or a
-    /// missing-value marker ([`MISSING_MARKERS`], read as empty), text if more than
-    /// [`STRAY_SHARE`] of them are not numbers, and an error naming the first stray lines and
+    /// [`TYPING_ROWS`](crate::data::TYPING_ROWS) rows (the typing sample): numeric if every one of them is a number or a
+    /// missing-value marker ([`MISSING_MARKERS`](crate::data::MISSING_MARKERS), read as empty), text if more than
+    /// [`STRAY_SHARE`](crate::data::STRAY_SHARE) of them are not numbers, and an error naming the first stray lines and
     /// values in between (a numeric column with a few damaged cells). After the sample, a cell
     /// that does not fit its column's type is an error naming its line.
     pub fn read(
@@ -40,7 +40,7 @@ impl Table {
     /// Reads CSV like [`Table::read`], but hands the rows to `each` in tables of at most
     /// `chunk_rows` rows (the last may be shorter) as they are read, so memory stays bounded
     /// by the chunk, not the file. Each chunk is typed on its own from its first
-    /// [`TYPING_ROWS`] rows (columns forced to text by the options stay text in every chunk);
+    /// [`TYPING_ROWS`](crate::data::TYPING_ROWS) rows (columns forced to text by the options stay text in every chunk);
     /// lines keep counting from the top of the file. Returns the number of rows read. A file
     /// without data rows is an error, as for [`Table::read`].
     pub fn read_chunks<E: From<DataError>>(

@@ -241,7 +241,7 @@ impl std::str::FromStr for Schedule {
 }
 
 impl std::fmt::Display for Schedule {
-    /// The text form [`Schedule::from_str`] reads back.
+    /// The text form that [`FromStr`](std::str::FromStr) reads back.
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         match *self {
             Schedule::Constant => f.write_str("constant"),

@@ -18,7 +18,7 @@ pub use block::BLOCK_ROWS;
 pub const DEFAULT_MARGIN: f64 = 0.05;
 
 pub use crate::data::Cell;
-/// What is wrong with a cell (the encoder's [`CellProblem`]).
+/// What is wrong with a cell (the encoder's [`CellProblem`](crate::data::CellProblem)).
 pub use crate::data::CellProblem as RowErrorKind;
 
 /// Why a row could not be predicted; `feature` indexes [`Predictor::feature_names`].
