@@ -313,26 +313,12 @@ fn the_chart_draws_both_losses_and_every_layer() {
         }
     }
     let svg = plot_run(&long, PlotOptions::default());
-    let width: f64 = svg
-        .split("width=\"")
-        .nth(1)
-        .unwrap()
-        .split('"')
-        .next()
-        .unwrap()
-        .parse()
-        .unwrap();
+    // The number in the quotes that open `text`.
+    let number = |text: &str| -> f64 { text.split('"').next().unwrap().parse().unwrap() };
+    let width = number(svg.split("width=\"").nth(1).unwrap());
     let name = "hidden layer 2 (random-leaky:0.125:0.333)";
     let before = &svg[..svg.find(&format!(">{name}<")).expect("legend entry")];
-    let x: f64 = before
-        .rsplit("<text x=\"")
-        .next()
-        .unwrap()
-        .split('"')
-        .next()
-        .unwrap()
-        .parse()
-        .unwrap();
+    let x = number(before.rsplit("<text x=\"").next().unwrap());
     assert!(
         x + 6.6 * name.len() as f64 <= width,
         "legend ends at {} of {width}",

@@ -241,17 +241,17 @@ fn with_imputation_asked_an_empty_cell_met_only_when_predicting_is_filled() {
         impute: Some(Impute::Median),
         ..spec("y")
     };
-    let (model, _) = Model::fit(
-        &table,
-        &asked,
-        &relume::Recipe {
+    let fit = |spec: &EncoderSpec| {
+        let recipe = relume::Recipe {
             members: 1,
             hidden: vec![4],
             ..relume::Recipe::default()
-        },
-        MonitorConfig::default(),
-    )
-    .unwrap();
+        };
+        Model::fit(&table, spec, &recipe, MonitorConfig::default())
+            .unwrap()
+            .0
+    };
+    let model = fit(&asked);
     assert_eq!(
         model.encoder.input_names().len(),
         1 + 5 + 3,
@@ -294,18 +294,7 @@ fn with_imputation_asked_an_empty_cell_met_only_when_predicting_is_filled() {
         .predict_row(&[Cell::Number(3.0), Cell::Missing, north], &mut scratch)
         .is_ok());
     // Without imputation the same empty cell stays an error naming the column.
-    let (plain, _) = Model::fit(
-        &table,
-        &spec("y"),
-        &relume::Recipe {
-            members: 1,
-            hidden: vec![4],
-            ..relume::Recipe::default()
-        },
-        MonitorConfig::default(),
-    )
-    .unwrap();
-    let p = Predictor::new(&plain);
+    let p = Predictor::new(&fit(&spec("y")));
     let mut scratch = p.scratch();
     let err = p
         .predict_row(&[Cell::Missing, day, south], &mut scratch)
