@@ -471,9 +471,6 @@ impl Recipe {
         train_idx: &[usize],
         val_idx: &[usize],
     ) -> Result<ScaledRows<F>, TrainError> {
-        if x.nrows() != y.nrows() {
-            return Err(ShapeError::new("targets", (x.nrows(), y.ncols()), y.dim()).into());
-        }
         self.scale_owned(x.to_owned(), y.to_owned(), train_idx, val_idx)
     }
 
