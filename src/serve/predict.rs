@@ -92,6 +92,21 @@ pub(crate) enum Step {
     Prelu(Vec<f32>),
 }
 
+/// How a member starts on a row: its first affine layer on the shifted inputs with the shift
+/// folded into the bias (one-hot levels that are off then add nothing and are skipped), or,
+/// when it does not start that way, every step on the row as it is.
+pub(super) enum Start<'p> {
+    /// The first affine layer's weights and folded bias, its width, and the steps after it.
+    Shifted {
+        weights: &'p [f32],
+        bias: &'p [f32],
+        outputs: usize,
+        rest: &'p [Step],
+    },
+    /// All the member's steps.
+    Dense(&'p [Step]),
+}
+
 /// A frozen model for serving.
 #[derive(Clone, Debug)]
 pub struct Predictor {
@@ -396,27 +411,24 @@ impl Predictor {
         let Scratch { a, b, input, .. } = scratch;
         input[..k].copy_from_slice(&a[..k]);
         let mut sum = 0.0_f64;
-        for (steps, first_bias) in self.members.iter().zip(&self.first_bias) {
-            let value = match (steps.as_slice(), first_bias) {
-                (
-                    [Step::Affine {
-                        inputs,
-                        outputs,
-                        weights,
-                        ..
-                    }, rest @ ..],
-                    Some(bias),
-                ) if *inputs == k => crate::kernels::with_simd(|| {
+        for start in self.starts(k) {
+            let value = match start {
+                Start::Shifted {
+                    weights,
+                    bias,
+                    outputs,
+                    rest,
+                } => crate::kernels::with_simd(|| {
                     shifted_affine(
                         &input[..k],
                         &self.shift[..k],
                         weights,
                         bias,
-                        &mut a[..*outputs],
+                        &mut a[..outputs],
                     );
-                    run_steps(rest, a, b, *outputs)
+                    run_steps(rest, a, b, outputs)
                 }),
-                _ => {
+                Start::Dense(steps) => {
                     a[..k].copy_from_slice(&input[..k]);
                     crate::kernels::with_simd(|| run_steps(steps, a, b, k))
                 }
@@ -424,6 +436,32 @@ impl Predictor {
             sum += f64::from(value);
         }
         self.average(sum)
+    }
+
+    /// How each member starts on a row of `k` encoded inputs (see [`Start`]).
+    fn starts(&self, k: usize) -> impl Iterator<Item = Start<'_>> {
+        self.members
+            .iter()
+            .zip(&self.first_bias)
+            .map(
+                move |(steps, first_bias)| match (steps.as_slice(), first_bias) {
+                    (
+                        [Step::Affine {
+                            inputs,
+                            outputs,
+                            weights,
+                            ..
+                        }, rest @ ..],
+                        Some(bias),
+                    ) if *inputs == k => Start::Shifted {
+                        weights,
+                        bias,
+                        outputs: *outputs,
+                        rest,
+                    },
+                    _ => Start::Dense(steps),
+                },
+            )
     }
 
     /// The members' average on the network's target scale, from the sum of their outputs

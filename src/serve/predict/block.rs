@@ -4,7 +4,7 @@
 //! the inputs in order; no fused multiply-add), so each row gets exactly the bits
 //! [`Predictor::predict_row`] gives it (tests/block_predict.rs checks this).
 
-use super::{affine_row, Cell, Predictor, RowError, RowPrediction, Scratch, Step};
+use super::{affine_row, Cell, Predictor, RowError, RowPrediction, Scratch, Start, Step};
 use crate::nn::activation::leaky;
 
 /// Rows encoded and run through the network together by [`Predictor::predict_table`]
@@ -121,28 +121,25 @@ impl Block {
         } = self;
         let sum = &mut sum[..n];
         sum.fill(0.0);
-        for (steps, first_bias) in p.members.iter().zip(&p.first_bias) {
-            match (steps.as_slice(), first_bias) {
-                (
-                    [Step::Affine {
-                        inputs,
-                        outputs,
-                        weights,
-                        ..
-                    }, rest @ ..],
-                    Some(bias),
-                ) if *inputs == k => crate::kernels::with_simd(
+        for start in p.starts(k) {
+            match start {
+                Start::Shifted {
+                    weights,
+                    bias,
+                    outputs,
+                    rest,
+                } => crate::kernels::with_simd(
                     #[inline(always)]
                     || {
                         // Sparse rows (one-hot levels that are off are skipped): row by row.
-                        for (r, out) in a.chunks_exact_mut(*outputs).take(n).enumerate() {
+                        for (r, out) in a.chunks_exact_mut(outputs).take(n).enumerate() {
                             let inputs = &nonzero[nonzero_at[r]..nonzero_at[r + 1]];
                             sparse_affine(inputs, weights, bias, out);
                         }
-                        run_block(rest, a, b, n, *outputs, sum)
+                        run_block(rest, a, b, n, outputs, sum)
                     },
                 ),
-                _ => {
+                Start::Dense(steps) => {
                     a[..n * k].copy_from_slice(&x[..n * k]);
                     crate::kernels::with_simd(
                         #[inline(always)]
