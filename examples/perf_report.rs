@@ -714,6 +714,6 @@ fn main() {
         scaling();
     }
     if only.iter().any(|c| c == "ensemble") {
-        ensemble(rounds.min(5));
+        ensemble(rounds.min(21));
     }
 }

@@ -188,3 +188,57 @@ fn the_predictor_averages_the_members_and_saves_them_all() {
     assert_eq!(again.value.to_bits(), served.value.to_bits());
     assert_eq!(again.lower, served.lower);
 }
+
+#[test]
+fn members_are_the_same_bits_on_one_two_and_three_threads() {
+    // With more runs than cores the runs start all at once (fit::parallel::map_all_at_once);
+    // each is seeded, so the thread count must not change a bit, with or without the grid.
+    use relume::fit::ensemble::fit_ensemble;
+    let (x, y) = friedman::friedman1(600, 3);
+    let (x, y) = (x.mapv(|v| v as f32), y.mapv(|v| v as f32));
+    let train: Vec<usize> = (0..480).collect();
+    let stop: Vec<usize> = (480..600).collect();
+    for choose_penalty in [false, true] {
+        let recipe = relume::Recipe {
+            members: 5,
+            choose_penalty,
+            ..relume::Recipe::default()
+        }
+        .with_config(relume::TrainConfig {
+            epochs: 4,
+            patience: None,
+            ..relume::TrainConfig::default()
+        });
+        let fit = |threads: usize| {
+            let pool = rayon::ThreadPoolBuilder::new()
+                .num_threads(threads)
+                .build()
+                .unwrap();
+            let e = pool
+                .install(|| {
+                    fit_ensemble(
+                        &recipe,
+                        x.view(),
+                        y.view(),
+                        &train,
+                        &stop,
+                        MonitorConfig::default(),
+                        &|_, _| {},
+                    )
+                })
+                .unwrap();
+            let params: Vec<Vec<f32>> = e
+                .members
+                .iter()
+                .map(|m| m.network.params().to_vec())
+                .collect();
+            (params, e.l2, e.grid.len())
+        };
+        let one = fit(1);
+        assert_eq!(one.0.len(), 5);
+        assert_eq!(one.2, if choose_penalty { 4 } else { 0 });
+        assert!(one.0[0] != one.0[1], "members differ from each other");
+        assert!(one == fit(2), "two threads, grid {choose_penalty}");
+        assert!(one == fit(3), "three threads, grid {choose_penalty}");
+    }
+}

@@ -4,11 +4,12 @@
 //! and early-stopping rows (Lakshminarayanan, Pritzel & Blundell 2017 train members on the
 //! whole set; no bootstrap: see DEVELOPERS.md for the measurements). Before the members, the L2
 //! strength is picked from [`PENALTY_GRID`] by the first member's best early-stopping loss;
-//! that run becomes the first member. Runs go in parallel over the cores (rayon, with the `parallel` feature); each is
+//! that run becomes the first member. Runs go in parallel over the cores (with the `parallel` feature,
+//! all at once so the cores stay busy to the end: [`map_all_at_once`]); each is
 //! seeded, so the result does not depend on the thread count.
 
 use crate::fit::monitor::MonitorConfig;
-use crate::fit::parallel::map_in_order;
+use crate::fit::parallel::map_all_at_once;
 use crate::fit::recipe::{Recipe, ScaledRows, Trained};
 use crate::fit::train::TrainError;
 use crate::report::RunReport;
@@ -25,6 +26,13 @@ pub const PENALTY_GRID: [f64; 4] = [0.0, 1e-4, 1e-3, 1e-2];
 /// Above this many training rows the grid is skipped and the recipe's own penalty is used
 /// (large tables regularize themselves, and each grid point costs a full training).
 pub const PENALTY_GRID_ROWS: usize = 20_000;
+
+/// A run of the first member with an L2 strength, or of a later member with the recipe's own.
+#[derive(Clone, Copy)]
+enum Job {
+    First(f64),
+    Member(usize),
+}
 
 /// A trained ensemble.
 #[derive(Debug)]
@@ -114,14 +122,24 @@ pub fn fit_ensemble_scaled(
     } else {
         grid.clone()
     };
-    let runs: Vec<(f64, RunOutcome)> = map_in_order(&candidates, |&l2| {
-        let r = if grid.is_empty() {
-            first.clone()
-        } else {
-            with_l2(&first, l2)
-        };
-        (l2, run(&r, true))
+    // Without a grid nothing waits on the first run: every member starts at once.
+    let together: Vec<usize> = if grid.is_empty() {
+        (1..k).collect()
+    } else {
+        Vec::new()
+    };
+    let jobs: Vec<Job> = candidates
+        .iter()
+        .map(|&l2| Job::First(l2))
+        .chain(together.iter().map(|&m| Job::Member(m)))
+        .collect();
+    let mut outcomes = map_all_at_once(&jobs, |job| match *job {
+        Job::First(_) if grid.is_empty() => run(&first, true),
+        Job::First(l2) => run(&with_l2(&first, l2), true),
+        Job::Member(m) => run(&member(recipe, m), false),
     });
+    let together_done = outcomes.split_off(candidates.len());
+    let runs: Vec<(f64, RunOutcome)> = candidates.iter().copied().zip(outcomes).collect();
     let scores: Vec<(f64, Option<f64>)> = runs
         .iter()
         .map(|(l2, r)| {
@@ -157,11 +175,14 @@ pub fn fit_ensemble_scaled(
     } else {
         with_l2(recipe, l2)
     };
-    let indices: Vec<usize> = (1..k).collect();
-    let rest: Vec<Trained<f32>> = map_in_order(&indices, |&m| {
-        run(&member(&chosen, m), false).map(|(t, _)| t)
-    })
+    let rest: Vec<Trained<f32>> = if grid.is_empty() {
+        together_done
+    } else {
+        let indices: Vec<usize> = (1..k).collect();
+        map_all_at_once(&indices, |&m| run(&member(&chosen, m), false))
+    }
     .into_iter()
+    .map(|outcome| outcome.map(|(t, _)| t))
     .collect::<Result<_, _>>()?;
     let mut members = vec![first_member];
     members.extend(rest);
