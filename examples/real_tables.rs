@@ -5,7 +5,8 @@
 //! rows with a target, trains the default model on the 80% and scores both it and a ridge
 //! regression (Hoerl & Kennard 1970, closed form solved by nalgebra, penalty picked by 5-fold
 //! cross-validation on the training rows over 10^-3..10^3) on the same one-hot, mean-imputed,
-//! standardized columns. Prints one line per table.
+//! standardized columns (values not held: see `EncoderSpec::hold_beyond`). Prints one line per
+//! table.
 
 use nalgebra::{DMatrix, DVector};
 use relume::data::{EncoderSpec, Impute, ReadOptions, Table};
@@ -114,6 +115,7 @@ fn ridge_holdout(
     let spec = EncoderSpec {
         target: target.to_string(),
         impute: Some(Impute::Mean),
+        hold_beyond: None,
         ..EncoderSpec::default()
     };
     let used: Vec<usize> = train.iter().chain(test).copied().collect();

@@ -162,6 +162,7 @@ fn inspect_shows_layers_inputs_and_training() {
         "affine 7 -> 64",
         "relu on 64 units",
         "outdoor_c: number, training range",
+        "values held within",
         "refrigerant: one-hot over 3",
         "dead units",
     ] {
@@ -209,6 +210,11 @@ fn bad_inputs_exit_2_with_a_message_naming_the_problem_and_where() {
     };
     let err = bad_flag("--threads", "0");
     assert!(err.contains("--threads"), "{err}");
+    let err = bad_flag("--hold-beyond", "-1");
+    assert!(
+        err.contains("--hold-beyond") && err.contains("'off'"),
+        "{err}"
+    );
     let o = Command::new(env!("CARGO_BIN_EXE_relume"))
         .args(["inspect", "--model", &out])
         .env("RELUME_THREADS", "two")

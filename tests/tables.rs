@@ -668,3 +668,73 @@ fn level_lookups_hash_with_fnv1a_as_published() {
         assert_eq!(h.finish(), want, "{text:?}");
     }
 }
+
+/// The prediction of a one-number-column model for `x`.
+fn one_number(predictor: &Predictor, x: f64) -> relume::serve::predict::RowPrediction {
+    predictor
+        .predict_row(&[Cell::Number(x)], &mut predictor.scratch())
+        .unwrap()
+}
+
+#[test]
+fn numeric_values_far_outside_the_training_range_are_held_and_still_flagged() {
+    // x in [0, 9], y = 3x: with the default (0.25 of the range) a value past 9 + 2.25 = 11.25
+    // reaches the network as 11.25, so x = 50 and x = 1000 predict the same bits as 11.25;
+    // below the range likewise at -2.25. Both rows are flagged as extrapolated.
+    let mut s = String::from("x,y\n");
+    for i in 0..200 {
+        let x = (i % 10) as f64;
+        s += &format!("{x},{}\n", 3.0 * x);
+    }
+    let table = read(&s).unwrap();
+    let (model, _) = Model::fit(&table, &spec("y"), &quick(), MonitorConfig::default()).unwrap();
+    match &model.encoder.features[0] {
+        FeatureEncoding::Number { held, .. } => assert_eq!(*held, Some((-2.25, 11.25))),
+        other => panic!("{other:?}"),
+    }
+    assert!(note(&model.encoder, "x").what.contains("held"));
+    let predictor = Predictor::new(&model);
+    let at = |x: f64| one_number(&predictor, x);
+    let (edge, far, farther) = (at(11.25), at(50.0), at(1000.0));
+    assert_eq!(far.value.to_bits(), edge.value.to_bits());
+    assert_eq!(farther.value.to_bits(), edge.value.to_bits());
+    assert!(far.extrapolated && farther.extrapolated);
+    assert_eq!(at(-40.0).value.to_bits(), at(-2.25).value.to_bits());
+    // Within the reach the network sees the value itself.
+    assert_ne!(at(10.0).value.to_bits(), edge.value.to_bits());
+    // An absurd value is still refused (judged by the value given), not held.
+    let err = predictor
+        .predict_row(&[Cell::Number(1e300)], &mut predictor.scratch())
+        .unwrap_err();
+    assert_eq!(err.kind, RowErrorKind::Overflow);
+    // The bounds survive saving; the table path holds the same way.
+    let reloaded = Model::from_json(&model.to_json()).unwrap();
+    let again = Predictor::new(&reloaded);
+    let rows = again
+        .predict_table(&read("x,y\n1000,0\n11.25,0\n").unwrap())
+        .unwrap();
+    assert_eq!(rows[0].value, Some(edge.value));
+    assert_eq!(rows[1].value, Some(edge.value));
+    assert_eq!(rows[0].out_of_range, vec!["x".to_string()]);
+
+    // Off: every value reaches the network, and the file records no bounds.
+    let open = EncoderSpec {
+        hold_beyond: None,
+        ..spec("y")
+    };
+    let (model, _) = Model::fit(&table, &open, &quick(), MonitorConfig::default()).unwrap();
+    assert!(matches!(
+        model.encoder.features[0],
+        FeatureEncoding::Number { held: None, .. }
+    ));
+    let predictor = Predictor::new(&model);
+    let at = |x: f64| one_number(&predictor, x);
+    assert_ne!(at(50.0).value.to_bits(), at(11.25).value.to_bits());
+    // A negative fraction is refused with the reason.
+    let bad = EncoderSpec {
+        hold_beyond: Some(-1.0),
+        ..spec("y")
+    };
+    let err = Model::fit(&table, &bad, &quick(), MonitorConfig::default()).unwrap_err();
+    assert!(err.to_string().contains("hold-beyond"), "{err}");
+}

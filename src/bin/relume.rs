@@ -274,6 +274,31 @@ struct ColumnArgs {
     /// Model ln(target); predictions come back in the target's units.
     #[arg(long)]
     log_target: bool,
+    /// Numeric values further outside their training range than this fraction of it are held
+    /// at that distance (recorded in the model; such rows are still flagged). `off` lets every
+    /// value reach the network as it is (default 0.25)
+    #[arg(
+        long,
+        value_name = "F|off",
+        default_value = "0.25",
+        value_parser = parse_hold,
+        allow_negative_numbers = true
+    )]
+    hold_beyond: HoldArg,
+}
+
+/// `--hold-beyond`: a fraction of the training range, or None for `off`.
+#[derive(Clone, Copy, Debug)]
+struct HoldArg(Option<f64>);
+
+fn parse_hold(text: &str) -> Result<HoldArg, String> {
+    if text == "off" {
+        return Ok(HoldArg(None));
+    }
+    match text.parse::<f64>() {
+        Ok(f) if f.is_finite() && f >= 0.0 => Ok(HoldArg(Some(f))),
+        _ => Err(format!("expected a number ≥ 0 or 'off', not '{text}'")),
+    }
 }
 
 impl ColumnArgs {
@@ -296,6 +321,7 @@ impl ColumnArgs {
             },
             keep: self.keep_columns.clone(),
             drop: self.drop_columns.clone(),
+            hold_beyond: self.hold_beyond.0,
         }
     }
 }
@@ -984,9 +1010,14 @@ fn describe_feature(f: &relume::data::FeatureEncoding) -> String {
             max,
             fill,
             missing_flag,
+            held,
             ..
         } => format!(
-            "number, training range [{min}, {max}]{}",
+            "number, training range [{min}, {max}]{}{}",
+            match held {
+                Some((lo, hi)) => format!(", values held within [{lo}, {hi}]"),
+                None => String::new(),
+            },
             filled(fill.map(|v| v.to_string()), *missing_flag)
         ),
         E::Category {

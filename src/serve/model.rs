@@ -23,8 +23,9 @@ use thiserror::Error;
 
 /// Name in the `format` field of every model file.
 pub const MODEL_FORMAT: &str = "relume-model";
-/// Version of the model file layout this library writes.
-pub const MODEL_VERSION: u32 = 2;
+/// Version of the model file layout this library writes (3: numeric features may hold their
+/// values within bounds, which an older reader would ignore, so it must refuse the file).
+pub const MODEL_VERSION: u32 = 3;
 /// Oldest model file version this library reads (version 1 files load with today's defaults
 /// for what they lack: no pooled or missing levels, no was-missing inputs).
 pub const OLDEST_MODEL_VERSION: u32 = 1;
@@ -690,6 +691,16 @@ fn validate(file: &ModelFile) -> Result<(), String> {
         }
     }
     for f in &file.encoder.features {
+        if let FeatureEncoding::Number {
+            name,
+            held: Some((lo, hi)),
+            ..
+        } = f
+        {
+            if !(lo.is_finite() && hi.is_finite() && lo <= hi) {
+                return Err(format!("feature '{name}': invalid held bounds"));
+            }
+        }
         match f {
             FeatureEncoding::Number {
                 name,

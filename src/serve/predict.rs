@@ -357,8 +357,15 @@ impl Predictor {
                         };
                     }
                     // A scaled value beyond f32 (or one the network cannot carry) would give
-                    // a meaningless number: refuse the row instead.
-                    if !within_range(scaled) {
+                    // a meaningless number: refuse the row instead. A held number is judged
+                    // by the value given, so an absurd one is still refused, not held.
+                    let given = match (feature, outcome.value) {
+                        (FeatureEncoding::Number { held: Some(_), .. }, Some(v)) => {
+                            ((v - self.inputs.mean[k]) / self.inputs.sd[k]) as f32
+                        }
+                        _ => 0.0,
+                    };
+                    if !within_range(scaled) || !within_range(&[given]) {
                         return Err(RowError {
                             feature: i,
                             kind: RowErrorKind::Overflow,
